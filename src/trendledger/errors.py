@@ -1,0 +1,70 @@
+"""Our own exception types.
+
+Every error a user can cause carries where it happened (file, line, column)
+so the CLI can print one clear line instead of a traceback.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+
+@dataclass
+class TrendledgerError(Exception):
+    """Base error: a message plus the place it refers to, where known."""
+
+    message: str
+    file: str | None = None
+    line: int | None = None
+    column: str | int | None = None
+    hint: str | None = None
+
+    #: exit code the CLI uses for this kind of error
+    exit_code = 2
+
+    def __post_init__(self) -> None:
+        super().__init__(self.message)
+
+    def __str__(self) -> str:
+        where = ""
+        if self.file is not None:
+            where = str(self.file)
+            if self.line is not None:
+                where += f":{self.line}"
+            if self.column is not None:
+                where += f": column {self.column}"
+            where += ": "
+        text = where + self.message
+        if self.hint:
+            text += f" ({self.hint})"
+        return text
+
+
+class SpecError(TrendledgerError):
+    """The spec file is malformed or inconsistent."""
+
+
+class InputError(TrendledgerError):
+    """A data file cannot be loaded as declared (the whole batch is refused)."""
+
+    exit_code = 3
+
+
+class StoreError(TrendledgerError):
+    """The store is missing, of the wrong kind, or would be overwritten."""
+
+
+class BusyError(StoreError):
+    """Another process holds the store for writing."""
+
+    exit_code = 4
+
+
+class QueryRefused(TrendledgerError):
+    """A query was refused before it ran, because it is not a pure read."""
+
+    exit_code = 5
+
+
+class TemplateError(TrendledgerError):
+    """A SQL template under sql/ is malformed (a bug in the tool, not in user input)."""

@@ -1,0 +1,166 @@
+"""Load the SQL files under ``sql/`` and fill their placeholders safely.
+
+Templates are plain DuckDB SQL in which placeholders are identifiers spelled
+``__name__`` (for example ``__x__``, ``__source__``, ``__group__``). We parse the
+template with sqlglot and replace those identifier nodes in the syntax tree:
+
+* a string value becomes a *quoted identifier* (column or table name),
+* a list of strings expands in place wherever the placeholder stands in a list
+  (SELECT list, GROUP BY, PARTITION BY, USING, ...),
+* a number becomes a numeric literal.
+
+User text is therefore never pasted into SQL: a column called
+``x"; DROP TABLE t; --`` is just a strange quoted name.
+"""
+
+from __future__ import annotations
+
+import re
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+from functools import cache
+from importlib import resources
+from pathlib import Path
+
+import sqlglot
+from sqlglot import exp
+
+from .errors import TemplateError
+
+PLACEHOLDER = re.compile(r"^__([a-z][a-z0-9_]*)__$")
+
+Value = str | float | int | Sequence[str]
+
+
+def sql_dir() -> Path:
+    """The folder holding the SQL files: inside the wheel, or ``sql/`` in a checkout."""
+    packaged = resources.files("trendledger") / "sql"
+    if packaged.is_dir():
+        return Path(str(packaged))
+    return Path(__file__).resolve().parents[2] / "sql"
+
+
+@dataclass(frozen=True)
+class Template:
+    """One parsed SQL file: its path, the description from its leading comment, its statements."""
+
+    name: str
+    path: Path
+    description: str
+    statements: tuple[exp.Expression, ...]
+    placeholders: frozenset[str]
+
+    def render(self, values: Mapping[str, Value]) -> list[str]:
+        """Return the statements as DuckDB SQL with every placeholder substituted."""
+        missing = self.placeholders - set(values)
+        if missing:
+            raise TemplateError(
+                f"no value for placeholder(s) {', '.join(sorted(missing))}", file=str(self.path)
+            )
+        return [_fill(stmt.copy(), values).sql(dialect="duckdb") for stmt in self.statements]
+
+
+def _description(text: str) -> str:
+    lines = []
+    for line in text.splitlines():
+        stripped = line.strip()
+        if stripped.startswith("--"):
+            lines.append(stripped[2:].strip())
+        elif stripped:
+            break
+        elif lines:
+            break
+    return " ".join(lines)
+
+
+def _placeholder_name(node: exp.Expression) -> str | None:
+    if isinstance(node, exp.Identifier):
+        match = PLACEHOLDER.match(node.this)
+        return match.group(1) if match else None
+    return None
+
+
+def parse(path: Path, name: str | None = None) -> Template:
+    """Parse one SQL file; a syntax error names the file and line."""
+    text = path.read_text(encoding="utf-8")
+    try:
+        statements = [s for s in sqlglot.parse(text, read="duckdb") if s is not None]
+    except sqlglot.errors.ParseError as err:
+        info = err.errors[0] if err.errors else {}
+        raise TemplateError(
+            info.get("description", str(err)),
+            file=str(path),
+            line=info.get("line"),
+            column=info.get("col"),
+        ) from err
+    if not statements:
+        raise TemplateError("holds no SQL statement", file=str(path))
+    found = set()
+    for stmt in statements:
+        for node in stmt.find_all(exp.Identifier):
+            ph = _placeholder_name(node)
+            if ph:
+                found.add(ph)
+    return Template(
+        name=name or path.stem,
+        path=path,
+        description=_description(text),
+        statements=tuple(statements),
+        placeholders=frozenset(found),
+    )
+
+
+@cache
+def load(relative: str) -> Template:
+    """Load ``sql/<relative>`` once per process."""
+    path = sql_dir() / relative
+    if not path.is_file():
+        raise TemplateError("SQL file not found", file=str(path))
+    return parse(path, name=Path(relative).stem)
+
+
+def load_dir(relative: str) -> list[Template]:
+    """Every ``.sql`` file of a folder under ``sql/``, in name order."""
+    folder = sql_dir() / relative
+    return [load(f"{relative}/{p.name}") for p in sorted(folder.glob("*.sql"))]
+
+
+def _fill(tree: exp.Expression, values: Mapping[str, Value]) -> exp.Expression:
+    # Collect first, then replace: replacing while walking would skip nodes.
+    targets = [n for n in tree.find_all(exp.Identifier) if _placeholder_name(n)]
+    for ident in targets:
+        key = _placeholder_name(ident)
+        assert key is not None
+        value = values[key]
+        # The node that stands for the placeholder: a Column wraps the identifier.
+        holder: exp.Expression = ident
+        if isinstance(ident.parent, exp.Column) and ident.arg_key == "this":
+            holder = ident.parent
+        if isinstance(value, str):
+            ident.replace(exp.to_identifier(value, quoted=True))
+        elif isinstance(value, bool):
+            raise TemplateError(f"placeholder __{key}__ cannot take a boolean")
+        elif isinstance(value, int | float):
+            holder.replace(exp.Literal.number(repr(value)))
+        else:
+            _expand(holder, ident, key, list(value))
+    return tree
+
+
+def _expand(holder: exp.Expression, ident: exp.Identifier, key: str, names: list[str]) -> None:
+    """Splice several quoted identifiers where one placeholder stands in a list."""
+    parent = holder.parent
+    arg_key = holder.arg_key
+    siblings = parent.args.get(arg_key) if parent is not None else None
+    if not isinstance(siblings, list):
+        raise TemplateError(f"list placeholder __{key}__ must stand in a list (select, group by, ...)")
+    table = holder.args.get("table") if isinstance(holder, exp.Column) else None
+    new: list[exp.Expression] = []
+    for name in names:
+        if isinstance(holder, exp.Column):
+            new.append(exp.column(name, table=table.copy() if table else None, quoted=True))
+        else:
+            new.append(exp.to_identifier(name, quoted=True))
+    index = siblings.index(holder)
+    assert parent is not None
+    parent.set(arg_key, siblings[:index] + new + siblings[index + 1 :])
