@@ -31,10 +31,17 @@ class TrendledgerError(Exception):
             where = str(self.file)
             if self.line is not None:
                 where += f":{self.line}"
-            if self.column is not None:
-                where += f": column {self.column}"
             where += ": "
-        text = where + self.message
+        return where + self.detail()
+
+    def detail(self) -> str:
+        """The message with line and column but without the file name (lineage keeps it)."""
+        text = ""
+        if self.file is None and self.line is not None:
+            text += f"line {self.line}: "
+        if self.column is not None:
+            text += f"column {self.column}: "
+        text += self.message
         if self.hint:
             text += f" ({self.hint})"
         return text

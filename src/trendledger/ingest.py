@@ -1,0 +1,653 @@
+"""Append a batch of files to the store: one globbed read, one transaction.
+
+The flow: expand the patterns, match each path against the template, hash the
+bytes, decide per file (new / unchanged / identical / changed / bad), then in
+one transaction read every new file with a single DuckDB ``read_*`` call,
+attach the template fields and a ``file_id``, write the lineage and commit.
+Any failure before COMMIT leaves the store exactly as it was.
+"""
+
+from __future__ import annotations
+
+import codecs
+import csv
+import datetime as dt
+import gzip
+import hashlib
+import io
+import json
+import os
+import tempfile
+import zlib
+from collections.abc import Callable
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+from typing import Any
+
+import duckdb
+from sqlglot import exp
+
+from . import __version__
+from .errors import InputError
+from .paths import PathTemplate, expand, relative_to_root
+from .spec import FLOATS, Spec
+from .store import utcnow
+
+Progress = Callable[[str, int, int], None]
+
+
+@dataclass
+class FileOutcome:
+    """What happened to one file of a batch."""
+
+    path: str
+    status: str  # loaded | skipped | rejected | unchanged
+    rows: int = 0
+    message: str | None = None
+    file_id: int | None = None
+    replaces: int | None = None
+
+
+@dataclass
+class BatchSummary:
+    """The result of one append, as printed by the CLI and returned by the API."""
+
+    batch_id: int | None
+    status: str
+    files: int = 0
+    rows: int = 0
+    skipped: int = 0
+    unchanged: int = 0
+    rejected: int = 0
+    replaced: int = 0
+    started_at: str | None = None
+    finished_at: str | None = None
+    outcomes: list[FileOutcome] = field(default_factory=list)
+
+    def to_dict(self) -> dict[str, Any]:
+        return asdict(self)
+
+
+@dataclass
+class _Candidate:
+    path: Path
+    relative: str
+    fields: dict[str, str]
+    data: bytes | None = None
+    sha256: str = ""
+    size: int = 0
+    mtime: dt.datetime | None = None
+    replaces: int | None = None
+    problem: InputError | None = None
+    file_id: int = 0
+    link: str = ""
+    decision: str = "load"  # load | skip | unchanged | bad
+    note: str | None = None
+
+
+def _mtime(stat: os.stat_result) -> dt.datetime:
+    return dt.datetime.fromtimestamp(stat.st_mtime, dt.UTC).replace(tzinfo=None)
+
+
+def _current(con: duckdb.DuckDBPyConnection) -> dict[str, tuple[int, str, int, Any, str]]:
+    """Latest live or retracted lineage row per path: what a new file is compared with."""
+    rows = con.execute(
+        """
+        SELECT path, file_id, sha256, bytes, modified_at, status
+        FROM ingest_files
+        WHERE status IN ('loaded', 'retracted')
+        QUALIFY row_number() OVER (PARTITION BY path ORDER BY file_id DESC) = 1
+        """
+    ).fetchall()
+    return {r[0]: (r[1], r[2], r[3], r[4], r[5]) for r in rows}
+
+
+def _text_head(data: bytes, gz: bool, path: str) -> bytes:
+    if not gz:
+        return data
+    try:
+        return zlib.decompressobj(wbits=31).decompress(data, 1 << 20)
+    except zlib.error as err:
+        raise InputError(f"not a valid gzip file ({err})", file=path) from err
+
+
+def _check_header(spec: Spec, data: bytes, path: str) -> None:
+    """DuckDB ignores the header when columns are declared, so we compare it ourselves."""
+    head = _text_head(data, spec.source.compression == "gzip", path)
+    if head.startswith(codecs.BOM_UTF8):
+        head = head[len(codecs.BOM_UTF8):]
+    end = head.find(b"\n")
+    first = head if end < 0 else head[:end]
+    try:
+        line = first.decode("utf-8").rstrip("\r")
+    except UnicodeDecodeError as err:
+        raise InputError("the header is not UTF-8 text", file=path, line=1) from err
+    delim = spec.source.delimiter or ("\t" if spec.source.format == "tsv" else ",")
+    names = next(csv.reader([line], delimiter=delim), [])
+    names = [n.strip() for n in names]
+    want = list(spec.source.columns)
+    if names != want:
+        missing = [n for n in want if n not in names]
+        extra = [n for n in names if n not in want]
+        if missing or extra:
+            parts = []
+            if missing:
+                parts.append("missing " + ", ".join(missing))
+            if extra:
+                parts.append("unexpected " + ", ".join(repr(e) for e in extra))
+            detail = "; ".join(parts)
+        else:
+            detail = "columns in another order"
+        raise InputError(
+            f"header {','.join(names)!r} does not match the spec ({detail}); expected "
+            f"{','.join(want)!r}",
+            file=path, line=1,
+        )
+
+
+def _check_utf8(spec: Spec, data: bytes, path: str) -> None:
+    """DuckDB replaces undecodable bytes before casting; we name the line instead."""
+    raw = data
+    if spec.source.compression == "gzip":
+        try:
+            raw = gzip.decompress(data)
+        except (OSError, EOFError, zlib.error) as err:
+            raise InputError(f"not a valid gzip file ({err})", file=path) from err
+    try:
+        raw.decode("utf-8")
+    except UnicodeDecodeError as err:
+        line = raw.count(b"\n", 0, err.start) + 1
+        raise InputError(
+            f"bytes that are not UTF-8 text (byte 0x{raw[err.start]:02x}); "
+            "save the file as UTF-8", file=path, line=line,
+        ) from err
+
+
+def _check_jsonl(spec: Spec, data: bytes, path: str) -> None:
+    """Every object must carry exactly the declared keys: DuckDB would fill NULLs silently."""
+    raw = gzip.decompress(data) if spec.source.compression == "gzip" else data
+    want = set(spec.source.columns)
+    for number, line in enumerate(io.BytesIO(raw), start=1):
+        if not line.strip():
+            continue
+        try:
+            obj = json.loads(line)
+        except (json.JSONDecodeError, UnicodeDecodeError) as err:
+            raise InputError(f"not valid JSON: {err}", file=path, line=number) from err
+        if not isinstance(obj, dict):
+            raise InputError("each line must be a JSON object", file=path, line=number)
+        keys = set(obj)
+        if keys != want:
+            missing = sorted(want - keys)
+            extra = sorted(keys - want)
+            what = "; ".join(
+                p for p in (
+                    "missing " + ", ".join(missing) if missing else "",
+                    "unexpected " + ", ".join(extra) if extra else "",
+                ) if p
+            )
+            raise InputError(f"keys do not match the spec ({what})", file=path, line=number)
+
+
+def _inspect(spec: Spec, cand: _Candidate) -> None:
+    """Cheap checks in Python that DuckDB would not do or would do silently."""
+    if cand.size == 0:
+        raise InputError("the file is empty (0 bytes)", file=cand.relative)
+    fmt = spec.source.format
+    assert cand.data is not None
+    if fmt in ("csv", "tsv"):
+        _check_utf8(spec, cand.data, cand.relative)
+        _check_header(spec, cand.data, cand.relative)
+    elif fmt == "jsonl":
+        _check_jsonl(spec, cand.data, cand.relative)
+    elif fmt == "parquet" and not cand.data.startswith(b"PAR1"):
+        raise InputError("not a Parquet file (no PAR1 magic bytes)", file=cand.relative)
+
+
+def _field_problems(con: duckdb.DuckDBPyConnection, spec: Spec,
+                    cands: list[_Candidate]) -> None:
+    """Mark files whose template fields do not parse as their declared types."""
+    for name, typ in spec.source.fields.items():
+        if typ in ("VARCHAR", "TEXT", "STRING"):
+            continue
+        values = sorted({c.fields[name] for c in cands if c.problem is None})
+        if not values:
+            continue
+        cast = exp.TryCast(this=exp.column("v"), to=exp.DataType.build(typ, dialect="duckdb"))
+        bad = {
+            v for (v,) in con.execute(
+                f"SELECT v FROM unnest($values) AS t(v) WHERE {cast.sql('duckdb')} IS NULL",
+                {"values": values},
+            ).fetchall()
+        }
+        for c in cands:
+            if c.problem is None and c.fields[name] in bad:
+                c.problem = InputError(
+                    f"template field {{{name}}} = {c.fields[name]!r} is not a valid {typ}",
+                    file=c.relative,
+                )
+
+
+def _read_call(spec: Spec) -> str:
+    """The one DuckDB table function call that reads every file of the batch."""
+    src = spec.source
+    comp = f", compression='{src.compression}'"
+    if src.format in ("csv", "tsv"):
+        cols = exp.Struct(expressions=[
+            exp.PropertyEQ(this=exp.Literal.string(n), expression=exp.Literal.string(t))
+            for n, t in src.columns.items()
+        ]).sql("duckdb")
+        delim = src.delimiter or ("\t" if src.format == "tsv" else ",")
+        delim_sql = exp.Literal.string(delim).sql("duckdb")
+        return (
+            f"read_csv($links, columns={cols}, auto_detect=false, header=true, "
+            f"delim={delim_sql}, quote='\"', escape='\"', filename=true{comp}, "
+            "store_rejects=true, ignore_errors=true, rejects_table='tl_rejects', "
+            "rejects_scan='tl_reject_scans')"
+        )
+    if src.format == "jsonl":
+        cols = exp.Struct(expressions=[
+            exp.PropertyEQ(this=exp.Literal.string(n), expression=exp.Literal.string(t))
+            for n, t in src.columns.items()
+        ]).sql("duckdb")
+        return (f"read_json($links, columns={cols}, format='newline_delimited', "
+                f"filename=true{comp})")
+    return "read_parquet($links, filename=true)"
+
+
+def _select_sql(spec: Spec, *, join: bool = True) -> str:
+    """SELECT the declared columns (and, joined to the batch's files, fields and file_id)."""
+    src = spec.source
+    select: list[exp.Expression] = []
+    for name, typ in src.columns.items():
+        col = exp.column(name, table="r", quoted=True)
+        if src.format == "parquet":
+            select.append(exp.cast(col, exp.DataType.build(typ, dialect="duckdb")))
+        else:
+            select.append(col)
+    if not join:
+        cols = ", ".join(s.sql("duckdb") for s in select)
+        return f"SELECT {cols} FROM {_read_call(spec)} AS r"
+    for name, typ in src.fields.items():
+        select.append(exp.cast(exp.column(name, table="f", quoted=True),
+                               exp.DataType.build(typ, dialect="duckdb")))
+    select.append(exp.column("file_id", table="f"))
+    cols = ", ".join(s.sql("duckdb") for s in select)
+    return (f"SELECT {cols} FROM {_read_call(spec)} AS r "
+            "JOIN tl_batch_files AS f ON r.filename = f.link")
+
+
+def _insert_sql(spec: Spec) -> str:
+    names = [*spec.source.columns, *spec.source.fields, "file_id"]
+    targets = ", ".join(exp.to_identifier(n, quoted=True).sql("duckdb") for n in names)
+    return f"INSERT INTO measurements ({targets}) {_select_sql(spec)}"
+
+
+def _stage_files(con: duckdb.DuckDBPyConnection, spec: Spec, cands: list[_Candidate]) -> None:
+    names = list(spec.source.fields)
+    defs = ", ".join(f"{exp.to_identifier(n, quoted=True).sql('duckdb')} VARCHAR" for n in names)
+    con.execute("DROP TABLE IF EXISTS tl_batch_files")
+    con.execute(f"CREATE TEMP TABLE tl_batch_files (link VARCHAR, file_id BIGINT, {defs})")
+    rows = [[c.link, c.file_id, *[c.fields[n] for n in names]] for c in cands]
+    marks = ", ".join("?" for _ in range(len(names) + 2))
+    con.executemany(f"INSERT INTO tl_batch_files VALUES ({marks})", rows)
+
+
+def _reject_problems(con: duckdb.DuckDBPyConnection, by_link: dict[str, _Candidate]) -> None:
+    """Turn DuckDB's stored CSV rejects into one problem per file (its first bad line)."""
+    try:
+        rows = con.execute(
+            """
+            SELECT s.file_path, e.line, e.column_name, e.error_type, e.error_message
+            FROM tl_rejects AS e JOIN tl_reject_scans AS s USING (scan_id, file_id)
+            ORDER BY s.file_path, e.line
+            """
+        ).fetchall()
+    except duckdb.CatalogException:
+        return
+    for link, line, column, kind, message in rows:
+        cand = by_link.get(link)
+        if cand is None or cand.problem is not None:
+            continue
+        text = str(message).split("\n")[0]
+        if kind == "INVALID ENCODING":
+            text = "bytes that are not UTF-8 text"
+        cand.problem = InputError(text, file=cand.relative, line=int(line),
+                                  column=column or None)
+
+
+def _nonfinite_problems(con: duckdb.DuckDBPyConnection, spec: Spec,
+                        by_id: dict[int, _Candidate]) -> None:
+    """NaN and infinity are refused: one of them would poison every sum of its group."""
+    floats = [n for n, t in spec.source.columns.items() if t in FLOATS]
+    if not floats or not by_id:
+        return
+    lo, hi = min(by_id), max(by_id)
+    for name in floats:
+        col = exp.to_identifier(name, quoted=True).sql("duckdb")
+        rows = con.execute(
+            f"SELECT DISTINCT file_id FROM measurements WHERE file_id BETWEEN ? AND ? "
+            f"AND (isnan({col}) OR isinf({col}))",
+            [lo, hi],
+        ).fetchall()
+        for (fid,) in rows:
+            cand = by_id[fid]
+            if cand.problem is None:
+                cand.problem = InputError(
+                    "holds NaN or an infinite value; leave the cell empty for a missing value",
+                    file=cand.relative, column=name,
+                )
+
+
+class _ReadFailed(Exception):
+    """The batch read raised (JSON, Parquet); the files are probed one by one afterwards."""
+
+    def __init__(self, cands: list[_Candidate], err: duckdb.Error) -> None:
+        super().__init__(str(err))
+        self.cands = cands
+        self.err = err
+
+
+def _locate_failures(con: duckdb.DuckDBPyConnection, spec: Spec, failed: _ReadFailed) -> None:
+    """Read the files of a failed batch one by one, outside any transaction, to find the bad."""
+    sql = f"CREATE OR REPLACE TEMP TABLE tl_probe AS {_select_sql(spec, join=False)}"
+    for c in failed.cands:
+        try:
+            con.execute(sql, {"links": [c.link]})
+        except duckdb.Error as one:
+            c.problem = _from_duckdb(one, c.relative)
+    con.execute("DROP TABLE IF EXISTS tl_probe")
+    if all(c.problem is None for c in failed.cands):
+        first = str(failed.err).splitlines()[0]
+        raise InputError(f"the batch could not be read: {first}") from failed.err
+
+
+def _from_duckdb(err: duckdb.Error, relative: str) -> InputError:
+    text = str(err)
+    line = None
+    for marker in ("in line ", "Line: "):
+        if marker in text:
+            tail = text.split(marker, 1)[1]
+            digits = "".join(ch for ch in tail[:12] if ch.isdigit())
+            line = int(digits) if digits else None
+            break
+    first = text.splitlines()[0]
+    for prefix in ("Invalid Input Error: ", "Conversion Error: ", "Binder Error: "):
+        first = first.replace(prefix, "")
+    return InputError(first, file=relative, line=line)
+
+
+def _parquet_problems(con: duckdb.DuckDBPyConnection, spec: Spec,
+                      by_link: dict[str, _Candidate]) -> None:
+    want = list(spec.source.columns)
+    rows = con.execute(
+        "SELECT file_name, list(name ORDER BY rowid) FROM "
+        "(SELECT *, row_number() OVER () AS rowid FROM parquet_schema($links)) "
+        "WHERE type IS NOT NULL GROUP BY file_name",
+        {"links": list(by_link)},
+    ).fetchall()
+    for link, names in rows:
+        cand = by_link[link]
+        if sorted(names) != sorted(want) and cand.problem is None:
+            cand.problem = InputError(
+                f"columns {', '.join(names)} do not match the spec ({', '.join(want)})",
+                file=cand.relative,
+            )
+
+
+def append(
+    con: duckdb.DuckDBPyConnection,
+    spec: Spec,
+    root: Path,
+    patterns: list[str] | None = None,
+    *,
+    replace: bool = False,
+    skip_bad: bool = False,
+    rehash: bool = False,
+    command: str | None = None,
+    progress: Progress | None = None,
+    base: Path | None = None,
+) -> BatchSummary:
+    """Append the files matched by ``patterns`` (default: the spec's template) as one batch.
+
+    Raises :class:`InputError` naming the first bad file unless ``skip_bad``;
+    in that case good files land and bad ones are recorded as rejected.
+    """
+    started = utcnow()
+    template = PathTemplate(spec.source.files)
+    if patterns:
+        paths = expand(patterns, base or Path.cwd())
+        if not paths:
+            raise InputError("no file matches " + ", ".join(repr(p) for p in patterns))
+    else:
+        paths = expand([template.glob], root)
+    known = _current(con)
+
+    cands: list[_Candidate] = []
+    total = len(paths)
+    for i, path in enumerate(paths):
+        if progress:
+            progress("hash", i, total)
+        rel = relative_to_root(path, root)
+        if rel is None:
+            c = _Candidate(path=path, relative=str(path), fields={})
+            c.problem = InputError("is outside the spec's folder " + str(root), file=str(path))
+            cands.append(c)
+            continue
+        matched = template.match(rel)
+        c = _Candidate(path=path, relative=rel, fields=matched if isinstance(matched, dict) else {})
+        cands.append(c)
+        if isinstance(matched, str):
+            c.problem = InputError(matched, file=rel)
+            continue
+        try:
+            stat = path.stat()
+        except OSError as err:
+            c.problem = InputError(f"cannot read: {err.strerror}", file=rel)
+            continue
+        c.size, c.mtime = stat.st_size, _mtime(stat)
+        prev = known.get(rel)
+        if (prev is not None and not rehash and prev[2] == c.size and prev[3] == c.mtime):
+            c.decision = "unchanged"
+            continue
+        try:
+            c.data = path.read_bytes()
+        except OSError as err:
+            c.problem = InputError(f"cannot read: {err.strerror}", file=rel)
+            continue
+        c.size = len(c.data)
+        c.sha256 = hashlib.sha256(c.data).hexdigest()
+        if prev is not None:
+            prev_id, prev_hash, _, _, prev_status = prev
+            if prev_hash == c.sha256:
+                c.decision = "skip"
+                c.note = (f"same content as file {prev_id}"
+                          + (" (retracted earlier)" if prev_status == "retracted" else ""))
+                continue
+            if prev_status == "loaded":
+                if not replace:
+                    c.problem = InputError(
+                        f"changed since it was loaded as file {prev_id}",
+                        file=rel, hint="pass --replace to retract the old rows and load it",
+                    )
+                    continue
+                c.replaces = prev_id
+        try:
+            _inspect(spec, c)
+        except InputError as err:
+            c.problem = err
+    if progress:
+        progress("hash", total, total)
+
+    _field_problems(con, spec, cands)
+    return _write(con, spec, cands, started=started, skip_bad=skip_bad, command=command,
+                  progress=progress)
+
+
+def _first_problem(cands: list[_Candidate]) -> InputError | None:
+    bad = [c for c in cands if c.problem is not None]
+    if not bad:
+        return None
+    first = bad[0].problem
+    assert first is not None
+    more = f"; {len(bad) - 1} more bad file(s) found so far" if len(bad) > 1 else ""
+    return InputError(
+        first.message + more,
+        file=first.file, line=first.line, column=first.column,
+        hint=(first.hint + "; " if first.hint else "")
+        + "nothing was written; fix the file or pass --skip-bad to load the good ones",
+    )
+
+
+def _write(
+    con: duckdb.DuckDBPyConnection,
+    spec: Spec,
+    cands: list[_Candidate],
+    *,
+    started: dt.datetime,
+    skip_bad: bool,
+    command: str | None,
+    progress: Progress | None,
+) -> BatchSummary:
+    if not skip_bad and (err := _first_problem(cands)) is not None:
+        raise err
+    to_load = [c for c in cands if c.problem is None and c.decision == "load"]
+    skipped = [c for c in cands if c.problem is None and c.decision == "skip"]
+    unchanged = [c for c in cands if c.problem is None and c.decision == "unchanged"]
+    if not to_load and not skipped and not any(c.problem for c in cands):
+        return BatchSummary(
+            batch_id=None, status="nothing new", unchanged=len(unchanged),
+            started_at=started.isoformat(timespec="seconds"),
+            finished_at=utcnow().isoformat(timespec="seconds"),
+            outcomes=[FileOutcome(c.relative, "unchanged") for c in unchanged],
+        )
+
+    with tempfile.TemporaryDirectory(prefix="trendledger-") as tmp:
+        while True:
+            con.execute("BEGIN TRANSACTION")
+            try:
+                summary = _transaction(con, spec, cands, to_load, skipped, unchanged, Path(tmp),
+                                       started=started, skip_bad=skip_bad, command=command,
+                                       progress=progress)
+                con.execute("COMMIT")
+                return summary
+            except _ReadFailed as failed:
+                con.execute("ROLLBACK")
+                _locate_failures(con, spec, failed)
+                if not skip_bad and (err := _first_problem(cands)) is not None:
+                    raise err from None
+            except BaseException:
+                con.execute("ROLLBACK")
+                raise
+
+
+def _transaction(
+    con: duckdb.DuckDBPyConnection,
+    spec: Spec,
+    cands: list[_Candidate],
+    to_load: list[_Candidate],
+    skipped: list[_Candidate],
+    unchanged: list[_Candidate],
+    tmp: Path,
+    *,
+    started: dt.datetime,
+    skip_bad: bool,
+    command: str | None,
+    progress: Progress | None,
+) -> BatchSummary:
+    batch_id = con.execute("SELECT coalesce(max(batch_id), 0) + 1 FROM ingest_batches").fetchone()
+    next_file = con.execute("SELECT coalesce(max(file_id), 0) + 1 FROM ingest_files").fetchone()
+    assert batch_id is not None and next_file is not None
+    bid, fid = int(batch_id[0]), int(next_file[0])
+    for c in cands:
+        c.file_id = fid
+        fid += 1
+
+    # Read through links with plain names: DuckDB expands glob characters even in a
+    # list of paths, so a file called "a[1].csv" would otherwise read "a1.csv".
+    suffix = ".gz" if spec.source.compression == "gzip" else ""
+    for c in to_load:
+        link = tmp / f"f{c.file_id}.{spec.source.format}{suffix}"
+        if not link.exists():
+            os.symlink(c.path.resolve(), link)
+        c.link = str(link)
+    by_link = {c.link: c for c in to_load}
+    if to_load:
+        if progress:
+            progress("read", 0, len(to_load))
+        if spec.source.format == "parquet":
+            _parquet_problems(con, spec, by_link)
+        good = [c for c in to_load if c.problem is None]
+        if good:
+            _stage_files(con, spec, good)
+            for table in ("tl_rejects", "tl_reject_scans"):
+                con.execute(f"DROP TABLE IF EXISTS {table}")
+            try:
+                con.execute(_insert_sql(spec), {"links": [c.link for c in good]})
+            except duckdb.Error as err:
+                raise _ReadFailed(good, err) from err
+            _reject_problems(con, by_link)
+            _nonfinite_problems(con, spec, {c.file_id: c for c in good})
+        if progress:
+            progress("read", len(to_load), len(to_load))
+    if not skip_bad and (problem := _first_problem(cands)) is not None:
+        raise problem
+    bad_ids = [c.file_id for c in to_load if c.problem is not None]
+    if bad_ids:
+        con.execute("DELETE FROM measurements WHERE list_contains($ids, file_id)", {"ids": bad_ids})
+
+    loaded = [c for c in to_load if c.problem is None]
+    counts = dict(
+        con.execute(
+            "SELECT file_id, count(*) FROM measurements WHERE file_id BETWEEN ? AND ? "
+            "GROUP BY file_id",
+            [min(c.file_id for c in cands), max(c.file_id for c in cands)],
+        ).fetchall()
+    ) if loaded else {}
+
+    now = utcnow()
+    replaced = [c for c in loaded if c.replaces is not None]
+    for c in replaced:
+        con.execute("DELETE FROM measurements WHERE file_id = ?", [c.replaces])
+        con.execute(
+            "UPDATE ingest_files SET status = 'replaced', changed_at = ?, "
+            "message = ? WHERE file_id = ?",
+            [now, f"replaced by file {c.file_id} in batch {bid}", c.replaces],
+        )
+
+    outcomes: list[FileOutcome] = []
+    lineage = []
+    for c in cands:
+        if c.decision == "unchanged" and c.problem is None:
+            outcomes.append(FileOutcome(c.relative, "unchanged"))
+            continue
+        if c.problem is not None:
+            line = f"line {c.problem.line}: " if c.problem.line is not None else ""
+            status, rows, message = "rejected", 0, line + c.problem.detail()
+        elif c.decision == "skip":
+            status, rows, message = "skipped", 0, c.note
+        else:
+            status, rows = "loaded", int(counts.get(c.file_id, 0))
+            message = f"replaces file {c.replaces}" if c.replaces is not None else None
+        outcomes.append(FileOutcome(c.relative, status, rows, message, c.file_id, c.replaces))
+        lineage.append([c.file_id, bid, c.relative, c.sha256, c.size, c.mtime, rows, status,
+                        message, c.replaces, None])
+    if lineage:
+        con.executemany(
+            "INSERT INTO ingest_files VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)", lineage
+        )
+    total_rows = sum(o.rows for o in outcomes)
+    n_rejected = sum(1 for o in outcomes if o.status == "rejected")
+    status = "partial" if n_rejected else "committed"
+    finished = utcnow()
+    con.execute(
+        "INSERT INTO ingest_batches VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, NULL, NULL)",
+        [bid, started, finished, status, len(loaded), total_rows, len(skipped), n_rejected,
+         __version__, spec.digest, command],
+    )
+    return BatchSummary(
+        batch_id=bid, status=status, files=len(loaded), rows=total_rows, skipped=len(skipped),
+        unchanged=len(unchanged), rejected=n_rejected, replaced=len(replaced),
+        started_at=started.isoformat(timespec="seconds"),
+        finished_at=finished.isoformat(timespec="seconds"), outcomes=outcomes,
+    )

@@ -1,0 +1,169 @@
+"""Lineage: list batches and files, retract them, and check the store against the disk."""
+
+from __future__ import annotations
+
+import hashlib
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+from typing import Any
+
+import duckdb
+import pandas as pd
+
+from .errors import InputError, StoreError
+from .store import utcnow
+
+
+def batches(con: duckdb.DuckDBPyConnection, batch: int | None = None) -> pd.DataFrame:
+    """One row per batch, newest last."""
+    where, params = ("WHERE batch_id = $batch", {"batch": batch}) if batch is not None else ("", {})
+    return con.execute(
+        f"SELECT * FROM ingest_batches {where} ORDER BY batch_id", params
+    ).df()
+
+
+def files(
+    con: duckdb.DuckDBPyConnection, batch: int | None = None, path: str | None = None
+) -> pd.DataFrame:
+    """One row per file of every batch; ``path`` is a glob over the recorded relative paths."""
+    clauses, params = [], {}
+    if batch is not None:
+        clauses.append("batch_id = $batch")
+        params["batch"] = batch
+    if path is not None:
+        clauses.append("path GLOB $path")
+        params["path"] = path
+    where = ("WHERE " + " AND ".join(clauses)) if clauses else ""
+    return con.execute(
+        f"SELECT * FROM ingest_files {where} ORDER BY file_id", params
+    ).df()
+
+
+def retract(
+    con: duckdb.DuckDBPyConnection,
+    *,
+    why: str,
+    batch: int | None = None,
+    path: str | None = None,
+) -> dict[str, int]:
+    """Remove the rows of a batch or of one file; the lineage keeps them as 'retracted'."""
+    if (batch is None) == (path is None):
+        raise InputError("name either a batch or a file to retract")
+    if not why.strip():
+        raise InputError("say why with --why; the reason is kept in the lineage")
+    if batch is not None:
+        found = con.execute("SELECT status FROM ingest_batches WHERE batch_id = ?",
+                            [batch]).fetchone()
+        if found is None:
+            raise StoreError(f"there is no batch {batch}")
+        if found[0] == "retracted":
+            raise StoreError(f"batch {batch} is already retracted")
+        ids = [r[0] for r in con.execute(
+            "SELECT file_id FROM ingest_files WHERE batch_id = ? AND status = 'loaded'",
+            [batch]).fetchall()]
+    else:
+        row = con.execute(
+            "SELECT file_id FROM ingest_files WHERE path = ? AND status = 'loaded'", [path]
+        ).fetchone()
+        if row is None:
+            known = con.execute("SELECT count(*) FROM ingest_files WHERE path = ?",
+                                [path]).fetchone()
+            what = "has no loaded rows" if known and known[0] else "is not in the lineage"
+            raise StoreError(f"file {path!r} {what}",
+                             hint="paths are relative to the spec's folder; see 'lineage --files'")
+        ids = [row[0]]
+    now = utcnow()
+    con.execute("BEGIN TRANSACTION")
+    try:
+        removed = con.execute(
+            "SELECT count(*) FROM measurements WHERE list_contains($ids, file_id)", {"ids": ids}
+        ).fetchone()
+        con.execute("DELETE FROM measurements WHERE list_contains($ids, file_id)", {"ids": ids})
+        con.execute(
+            "UPDATE ingest_files SET status = 'retracted', changed_at = $now, message = $why "
+            "WHERE list_contains($ids, file_id)",
+            {"now": now, "why": why, "ids": ids},
+        )
+        if batch is not None:
+            con.execute(
+                "UPDATE ingest_batches SET status = 'retracted', retracted_at = ?, "
+                "retract_reason = ? WHERE batch_id = ?",
+                [now, why, batch],
+            )
+        con.execute("COMMIT")
+    except BaseException:
+        con.execute("ROLLBACK")
+        raise
+    return {"files": len(ids), "rows": int(removed[0]) if removed else 0}
+
+
+@dataclass
+class CheckReport:
+    """What ``check`` found; ``ok`` is False when the store and the disk disagree."""
+
+    fine: int = 0
+    missing: list[str] = field(default_factory=list)
+    changed: list[str] = field(default_factory=list)
+    count_mismatch: list[str] = field(default_factory=list)
+    same_content: list[list[str]] = field(default_factory=list)
+    duplicate_rows: list[str] = field(default_factory=list)
+
+    @property
+    def ok(self) -> bool:
+        return not self.changed and not self.count_mismatch
+
+    def to_dict(self) -> dict[str, Any]:
+        return {**asdict(self), "ok": self.ok}
+
+
+def check(con: duckdb.DuckDBPyConnection, root: Path) -> CheckReport:
+    """Re-hash every loaded file still on disk and recount its rows in the store."""
+    report = CheckReport()
+    rows = con.execute(
+        """
+        SELECT f.path, f.sha256, f.rows, coalesce(m.n, 0) AS stored
+        FROM ingest_files AS f
+        LEFT JOIN (SELECT file_id, count(*) AS n FROM measurements GROUP BY file_id) AS m
+          USING (file_id)
+        WHERE f.status = 'loaded'
+        ORDER BY f.path
+        """
+    ).fetchall()
+    for path, sha, recorded, stored in rows:
+        if int(recorded) != int(stored):
+            report.count_mismatch.append(
+                f"{path}: lineage says {recorded} rows, store has {stored}"
+            )
+        full = root / path
+        try:
+            digest = hashlib.sha256(full.read_bytes()).hexdigest()
+        except FileNotFoundError:
+            report.missing.append(path)
+            continue
+        if digest != sha:
+            report.changed.append(path)
+        else:
+            report.fine += 1
+    orphans = con.execute(
+        "SELECT count(*) FROM measurements WHERE file_id NOT IN "
+        "(SELECT file_id FROM ingest_files WHERE status = 'loaded')"
+    ).fetchone()
+    if orphans and orphans[0]:
+        report.count_mismatch.append(f"{orphans[0]} rows belong to no loaded file")
+    for (paths,) in con.execute(
+        "SELECT list(path ORDER BY path) FROM ingest_files WHERE status = 'loaded' "
+        "GROUP BY sha256 HAVING count(*) > 1"
+    ).fetchall():
+        report.same_content.append(list(paths))
+    # A row repeated within one file is kept (it is data) but reported here.
+    for (path, n) in con.execute(
+        """
+        SELECT f.path, d.extra FROM (
+            SELECT file_id, count(*) - count(DISTINCT m) AS extra
+            FROM measurements AS m GROUP BY file_id
+        ) AS d JOIN ingest_files AS f USING (file_id)
+        WHERE d.extra > 0 ORDER BY f.path
+        """
+    ).fetchall():
+        report.duplicate_rows.append(f"{path}: {n} repeated row(s)")
+    return report

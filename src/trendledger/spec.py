@@ -1,0 +1,377 @@
+"""The spec: what the files look like and which trends to fit.
+
+A spec is a small TOML file written by the person who owns the store. It is
+parsed once, validated with errors that name the key, and saved inside the
+store so that every later command needs only the store path.
+"""
+
+from __future__ import annotations
+
+import difflib
+import hashlib
+import re
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from .errors import SpecError
+
+FORMATS = ("csv", "tsv", "parquet", "jsonl")
+WINDOWS = ("day", "week", "month")
+
+# DuckDB types a column or template field may declare. Parametrised DECIMAL is
+# matched separately. Kept to plain scalar types: they load from every format.
+TYPES = {
+    "BOOLEAN", "TINYINT", "SMALLINT", "INTEGER", "BIGINT", "HUGEINT",
+    "UTINYINT", "USMALLINT", "UINTEGER", "UBIGINT",
+    "FLOAT", "REAL", "DOUBLE", "VARCHAR", "TEXT", "STRING",
+    "DATE", "TIME", "TIMESTAMP", "TIMESTAMPTZ", "TIMESTAMP WITH TIME ZONE",
+}
+NUMERIC = {
+    "TINYINT", "SMALLINT", "INTEGER", "BIGINT", "HUGEINT", "UTINYINT", "USMALLINT",
+    "UINTEGER", "UBIGINT", "FLOAT", "REAL", "DOUBLE",
+}
+FLOATS = {"FLOAT", "REAL", "DOUBLE"}
+DECIMAL = re.compile(r"^DECIMAL\(\s*(\d+)\s*,\s*(\d+)\s*\)$")
+NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
+FIELD = re.compile(r"\{([^{}]*)\}")
+GLOB_CHARS = set("*?[]")
+# Names the store uses for its own columns.
+RESERVED = {"file_id"}
+
+
+@dataclass(frozen=True)
+class Fit:
+    """One regression definition: y against x, per group."""
+
+    name: str
+    group: tuple[str, ...]
+    x: str
+    y: str
+    level: float = 0.95
+    through_origin: bool = False
+    limit: float | None = None
+    horizon: float | None = None
+    window: str | None = None
+    window_x: float | None = None
+    min_r2: float = 0.9
+    alpha: float = 0.01
+
+    @property
+    def view(self) -> str:
+        return f"fit_{self.name}"
+
+
+@dataclass(frozen=True)
+class Source:
+    """Where the files are and what is inside them."""
+
+    files: str
+    format: str
+    columns: dict[str, str]
+    fields: dict[str, str]
+    delimiter: str | None = None
+
+    @property
+    def compression(self) -> str:
+        return "gzip" if self.files.endswith(".gz") else "none"
+
+
+@dataclass(frozen=True)
+class Spec:
+    """A validated spec, with the text it came from (saved in the store)."""
+
+    source: Source
+    fits: tuple[Fit, ...]
+    text: str = field(repr=False)
+    path: str | None = None
+
+    @property
+    def digest(self) -> str:
+        """sha256 of the spec text: printed on reports so results can be traced."""
+        return hashlib.sha256(self.text.encode("utf-8")).hexdigest()
+
+    def fit(self, name: str | None) -> Fit:
+        """The fit called ``name`` (or the only one), with a did-you-mean on a typo."""
+        if name is None:
+            if len(self.fits) == 1:
+                return self.fits[0]
+            names = ", ".join(f.name for f in self.fits)
+            raise SpecError(f"the spec defines several fits ({names}); name one")
+        for f in self.fits:
+            if f.name == name:
+                return f
+        names = [f.name for f in self.fits]
+        raise SpecError(f"no fit named {name!r}", hint=did_you_mean(name, names))
+
+    @property
+    def all_columns(self) -> dict[str, str]:
+        """Columns of the measurements table, in order: file columns, then template fields."""
+        return {**self.source.columns, **self.source.fields}
+
+
+def did_you_mean(word: str, choices: list[str] | tuple[str, ...]) -> str | None:
+    close = difflib.get_close_matches(word, list(choices), n=1)
+    if close:
+        return f"did you mean {close[0]!r}?"
+    if choices:
+        return "choose from " + ", ".join(choices)
+    return None
+
+
+def normalise_type(value: Any, where: str, path: str | None) -> str:
+    if not isinstance(value, str):
+        raise SpecError(f"{where}: the type must be a string such as \"DOUBLE\"", file=path)
+    text = " ".join(value.strip().upper().split())
+    if text in TYPES or DECIMAL.match(text):
+        return text
+    raise SpecError(
+        f"{where}: unknown type {value!r}",
+        file=path,
+        hint=did_you_mean(text, sorted(TYPES)),
+    )
+
+
+def _check_name(name: str, where: str, path: str | None) -> None:
+    if not NAME.match(name):
+        raise SpecError(
+            f"{where}: name {name!r} must start with a letter or _ and hold only letters, "
+            "digits and _",
+            file=path,
+        )
+    if name.lower() in RESERVED:
+        raise SpecError(f"{where}: {name!r} is used by the store itself; rename it", file=path)
+
+
+def template_fields(template: str) -> list[str]:
+    return FIELD.findall(template)
+
+
+def _table(
+    doc: dict[str, Any], key: str, path: str | None, required: bool = True
+) -> dict[str, Any]:
+    value = doc.get(key)
+    if value is None:
+        if required:
+            raise SpecError(f"missing [{key}] table", file=path)
+        return {}
+    if not isinstance(value, dict):
+        raise SpecError(f"{key} must be a table", file=path)
+    return value
+
+
+def _unknown_keys(table: dict[str, Any], allowed: set[str], where: str, path: str | None) -> None:
+    for key in table:
+        if key not in allowed:
+            raise SpecError(
+                f"{where}: unknown key {key!r}", file=path, hint=did_you_mean(key, sorted(allowed))
+            )
+
+
+def _number(raw: dict[str, Any], key: str, where: str, path: str | None) -> float | None:
+    value = raw.get(key)
+    if value is None:
+        return None
+    if isinstance(value, bool) or not isinstance(value, int | float):
+        raise SpecError(f"{where}: {key} must be a number", file=path)
+    return float(value)
+
+
+def _parse_source(doc: dict[str, Any], path: str | None) -> Source:
+    raw = _table(doc, "source", path)
+    _unknown_keys(raw, {"files", "format", "columns", "fields", "delimiter"}, "[source]", path)
+    files = raw.get("files")
+    if not isinstance(files, str) or not files.strip():
+        raise SpecError("[source] files: give a path template such as \"in/{day}/{unit}.csv\"",
+                        file=path)
+    if files.startswith("/") or ".." in Path(files).parts:
+        raise SpecError("[source] files: the template must be relative to the spec's folder "
+                        "and stay inside it", file=path)
+    if GLOB_CHARS & set(FIELD.sub("", files)):
+        raise SpecError("[source] files: use {name} fields, not glob characters (* ? [ ])",
+                        file=path)
+    names = template_fields(files)
+    if not names:
+        raise SpecError("[source] files: the template has no {field}; name the part of the "
+                        "path that changes, e.g. {day}/{unit}.csv", file=path)
+    if re.search(r"\}\{", files):
+        raise SpecError("[source] files: two fields side by side cannot be told apart; "
+                        "put a separator between them", file=path)
+    fmt = raw.get("format")
+    if fmt is None:
+        fmt = _guess_format(files)
+    if fmt not in FORMATS:
+        raise SpecError(f"[source] format: {fmt!r} is not one of {', '.join(FORMATS)}", file=path,
+                        hint=did_you_mean(str(fmt), FORMATS))
+    if fmt == "parquet" and files.endswith(".gz"):
+        raise SpecError("[source] files: parquet files carry their own compression; drop .gz",
+                        file=path)
+    delimiter = raw.get("delimiter")
+    if delimiter is not None and (fmt not in ("csv", "tsv") or not isinstance(delimiter, str)
+                                  or len(delimiter) != 1):
+        raise SpecError("[source] delimiter: one character, for csv or tsv files", file=path)
+
+    columns_raw = _table(raw, "columns", path)
+    if not columns_raw:
+        raise SpecError("[source.columns] declares no column", file=path)
+    columns: dict[str, str] = {}
+    for name, typ in columns_raw.items():
+        _check_name(name, "[source.columns]", path)
+        columns[name] = normalise_type(typ, f"[source.columns] {name}", path)
+    fields_raw = _table(raw, "fields", path, required=False)
+    fields: dict[str, str] = {}
+    seen: set[str] = set()
+    for name in names:
+        if not name:
+            raise SpecError("[source] files: empty {} in the template", file=path)
+        _check_name(name, "[source] files", path)
+        if name in seen:
+            raise SpecError(f"[source] files: field {{{name}}} appears twice", file=path)
+        seen.add(name)
+        fields[name] = normalise_type(fields_raw.get(name, "VARCHAR"), f"[source.fields] {name}",
+                                      path)
+    for name in fields_raw:
+        if name not in seen:
+            raise SpecError(f"[source.fields] {name}: not a field of the template {files!r}",
+                            file=path, hint=did_you_mean(name, names))
+    lowered: dict[str, str] = {}
+    for name in [*columns, *fields]:
+        # DuckDB column names are case-insensitive: Cell and cell would collide.
+        if name.lower() in lowered:
+            raise SpecError(f"name {name!r} is declared twice (as a column and a field, or in "
+                            "two cases)", file=path)
+        lowered[name.lower()] = name
+    return Source(files=files, format=fmt, columns=columns, fields=fields, delimiter=delimiter)
+
+
+def _guess_format(files: str) -> str:
+    name = files[:-3] if files.endswith(".gz") else files
+    for fmt, ext in (("csv", ".csv"), ("tsv", ".tsv"), ("parquet", ".parquet"),
+                     ("jsonl", ".jsonl"), ("jsonl", ".ndjson")):
+        if name.endswith(ext):
+            return fmt
+    return "csv"
+
+
+FIT_KEYS = {
+    "name", "group", "x", "y", "level", "through_origin", "limit", "horizon", "window",
+    "window_x", "min_r2", "alpha",
+}
+
+
+def _parse_fit(raw: Any, index: int, source: Source, path: str | None) -> Fit:
+    where = f"[[fit]] #{index + 1}"
+    if not isinstance(raw, dict):
+        raise SpecError(f"{where} must be a table", file=path)
+    _unknown_keys(raw, FIT_KEYS, where, path)
+    name = raw.get("name")
+    if not isinstance(name, str):
+        raise SpecError(f"{where}: give it a name", file=path)
+    where = f"[[fit]] {name}"
+    _check_name(name, where, path)
+    known = {**source.columns, **source.fields}
+
+    def column(key: str, value: Any) -> str:
+        if not isinstance(value, str):
+            raise SpecError(f"{where}: {key} must be a column name", file=path)
+        if value not in known:
+            raise SpecError(f"{where}: {key} = {value!r} is not a declared column or field",
+                            file=path, hint=did_you_mean(value, list(known)))
+        return value
+
+    x = column("x", raw.get("x"))
+    y = column("y", raw.get("y"))
+    for key, col in (("x", x), ("y", y)):
+        if known[col] not in NUMERIC and not DECIMAL.match(known[col]):
+            raise SpecError(f"{where}: {key} = {col!r} has type {known[col]}; it must be numeric",
+                            file=path)
+    group_raw = raw.get("group", [])
+    if isinstance(group_raw, str):
+        group_raw = [group_raw]
+    if not isinstance(group_raw, list) or not group_raw:
+        raise SpecError(f"{where}: group must list at least one column, e.g. group = [\"unit\"]",
+                        file=path)
+    group = tuple(column("group", g) for g in group_raw)
+    if len(set(group)) != len(group):
+        raise SpecError(f"{where}: group lists a column twice", file=path)
+    if x in group or y in group:
+        raise SpecError(f"{where}: x and y cannot also be group columns", file=path)
+    if x == y:
+        raise SpecError(f"{where}: x and y are the same column", file=path)
+
+    level = _number(raw, "level", where, path)
+    if level is not None and not 0.5 <= level < 1:
+        raise SpecError(f"{where}: level must be between 0.5 and 1, e.g. 0.95", file=path)
+    alpha = _number(raw, "alpha", where, path)
+    if alpha is not None and not 0 < alpha < 0.5:
+        raise SpecError(f"{where}: alpha must be between 0 and 0.5, e.g. 0.01", file=path)
+    min_r2 = _number(raw, "min_r2", where, path)
+    if min_r2 is not None and not 0 <= min_r2 <= 1:
+        raise SpecError(f"{where}: min_r2 must be between 0 and 1", file=path)
+    horizon = _number(raw, "horizon", where, path)
+    if horizon is not None and horizon <= 0:
+        raise SpecError(f"{where}: horizon must be positive", file=path)
+    window_x = _number(raw, "window_x", where, path)
+    if window_x is not None and window_x <= 0:
+        raise SpecError(f"{where}: window_x must be positive", file=path)
+    window = raw.get("window")
+    if window is not None:
+        if window not in WINDOWS:
+            raise SpecError(f"{where}: window must be one of {', '.join(WINDOWS)}", file=path,
+                            hint=did_you_mean(str(window), WINDOWS))
+        if not any(t.startswith(("DATE", "TIMESTAMP")) for t in known.values()):
+            raise SpecError(f"{where}: window = {window!r} needs a DATE or TIMESTAMP field",
+                            file=path)
+        if window_x is not None:
+            raise SpecError(f"{where}: give window or window_x, not both", file=path)
+    origin = raw.get("through_origin", False)
+    if not isinstance(origin, bool):
+        raise SpecError(f"{where}: through_origin must be true or false", file=path)
+    return Fit(
+        name=name, group=group, x=x, y=y,
+        level=level if level is not None else 0.95,
+        through_origin=origin,
+        limit=_number(raw, "limit", where, path),
+        horizon=horizon,
+        window=window,
+        window_x=window_x,
+        min_r2=min_r2 if min_r2 is not None else 0.9,
+        alpha=alpha if alpha is not None else 0.01,
+    )
+
+
+def parse(text: str, path: str | None = None) -> Spec:
+    """Parse and validate spec text; ``path`` only labels errors."""
+    try:
+        doc = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as err:
+        match = re.search(r"line (\d+), column (\d+)", str(err))
+        raise SpecError(
+            f"not valid TOML: {str(err).split(' (at')[0]}",
+            file=path,
+            line=int(match.group(1)) if match else None,
+            column=int(match.group(2)) if match else None,
+        ) from err
+    _unknown_keys(doc, {"source", "fit"}, "spec", path)
+    source = _parse_source(doc, path)
+    fits_raw = doc.get("fit", [])
+    if not isinstance(fits_raw, list):
+        raise SpecError("fit: write each fit as a [[fit]] table", file=path)
+    fits = tuple(_parse_fit(raw, i, source, path) for i, raw in enumerate(fits_raw))
+    names = [f.name for f in fits]
+    for n in names:
+        if names.count(n) > 1:
+            raise SpecError(f"[[fit]] {n}: two fits share this name", file=path)
+    return Spec(source=source, fits=fits, text=text, path=path)
+
+
+def load(path: Path) -> Spec:
+    """Read and validate a spec file."""
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError as err:
+        raise SpecError("spec file not found", file=str(path)) from err
+    except UnicodeDecodeError as err:
+        raise SpecError("spec file is not UTF-8 text", file=str(path)) from err
+    return parse(text, path=str(path))

@@ -1,0 +1,165 @@
+"""Open, create and describe the DuckDB file that holds everything.
+
+One writing process or many reading processes may hold a DuckDB file at a
+time; DuckDB enforces that with a file lock. We turn its lock error into
+:class:`BusyError` and optionally wait for the lock to be released.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import time
+from collections.abc import Callable
+from pathlib import Path
+
+import duckdb
+from sqlglot import exp
+
+from . import __version__, templates
+from .errors import BusyError, StoreError
+from .spec import Spec
+from .spec import parse as parse_spec
+
+#: Bumped whenever the store's own tables change; see MIGRATIONS.
+SCHEMA_VERSION = 1
+#: Oldest DuckDB storage format we write, so 1.5.x clients can open the file.
+STORAGE_VERSION = "v1.5.0"
+DEFAULT_NAME = "trendledger.duckdb"
+
+Trace = Callable[[str, object], None]
+
+
+def utcnow() -> dt.datetime:
+    """Wall-clock UTC time from the client (DuckDB's now() is the transaction start)."""
+    return dt.datetime.now(dt.UTC).replace(tzinfo=None)
+
+
+def _is_lock_error(err: Exception) -> bool:
+    text = str(err)
+    return "Could not set lock" in text or "Conflicting lock" in text
+
+
+def connect(
+    path: Path,
+    *,
+    read_only: bool,
+    wait: float = 0.0,
+    config: dict[str, str | bool] | None = None,
+) -> duckdb.DuckDBPyConnection:
+    """Open an existing store, waiting up to ``wait`` seconds for another process's lock."""
+    if not path.exists():
+        raise StoreError(
+            "no store here", file=str(path),
+            hint="create one with 'trendledger init --spec FILE' or pass --store",
+        )
+    deadline = time.monotonic() + max(wait, 0.0)
+    delay = 0.05
+    while True:
+        try:
+            con = duckdb.connect(str(path), read_only=read_only, config=config or {})
+        except duckdb.IOException as err:
+            if not _is_lock_error(err):
+                raise StoreError(f"cannot open the store: {_first_line(err)}",
+                                 file=str(path)) from err
+            if time.monotonic() >= deadline:
+                raise BusyError(
+                    "the store is being written by another process; retry or pass --wait SECONDS",
+                    file=str(path),
+                ) from err
+            time.sleep(delay)
+            delay = min(delay * 2, 0.5)
+            continue
+        except duckdb.Error as err:
+            raise StoreError(f"cannot open the store: {_first_line(err)}", file=str(path)) from err
+        try:
+            con.execute("SELECT value FROM tl_meta WHERE key = 'schema_version'").fetchone()
+        except duckdb.Error as err:
+            con.close()
+            raise StoreError("this file is not a trendledger store", file=str(path)) from err
+        return con
+
+
+def _first_line(err: Exception) -> str:
+    return str(err).strip().splitlines()[0] if str(err).strip() else type(err).__name__
+
+
+def measurements_ddl(spec: Spec) -> str:
+    """CREATE TABLE for the data: declared columns, template fields, then file_id."""
+    columns = [
+        exp.ColumnDef(
+            this=exp.to_identifier(name, quoted=True),
+            kind=exp.DataType.build(typ, dialect="duckdb"),
+        )
+        for name, typ in spec.all_columns.items()
+    ]
+    columns.append(
+        exp.ColumnDef(this=exp.to_identifier("file_id", quoted=True),
+                      kind=exp.DataType.build("BIGINT"))
+    )
+    create = exp.Create(
+        this=exp.Schema(this=exp.to_table("measurements"), expressions=columns),
+        kind="TABLE",
+    )
+    return create.sql(dialect="duckdb")
+
+
+def create(path: Path, spec: Spec, *, root: Path, force: bool = False) -> None:
+    """Create a new store for ``spec``; refuse to overwrite unless ``force``."""
+    if path.exists():
+        if not force:
+            raise StoreError("a store already exists here", file=str(path),
+                             hint="pass --force to replace it (its data is lost)")
+        path.unlink()
+        wal = path.with_name(path.name + ".wal")
+        if wal.exists():
+            wal.unlink()
+    path.parent.mkdir(parents=True, exist_ok=True)
+    try:
+        con = duckdb.connect(str(path), config={"storage_compatibility_version": STORAGE_VERSION})
+    except duckdb.Error as err:
+        raise StoreError(f"cannot create the store: {_first_line(err)}", file=str(path)) from err
+    try:
+        con.execute("BEGIN")
+        for stmt in templates.load("schema/001_base.sql").render({}):
+            con.execute(stmt)
+        con.execute(measurements_ddl(spec))
+        meta = {
+            "schema_version": str(SCHEMA_VERSION),
+            "spec": spec.text,
+            "spec_hash": spec.digest,
+            "root": str(root.resolve()),
+            "created_at": utcnow().isoformat(timespec="seconds"),
+            "created_by": __version__,
+        }
+        con.executemany("INSERT INTO tl_meta VALUES (?, ?)", list(meta.items()))
+        con.execute("COMMIT")
+    except BaseException:
+        con.close()
+        path.unlink(missing_ok=True)
+        raise
+    con.close()
+
+
+def meta(con: duckdb.DuckDBPyConnection) -> dict[str, str]:
+    return {k: v for k, v in con.execute("SELECT key, value FROM tl_meta").fetchall()}
+
+
+def set_meta(con: duckdb.DuckDBPyConnection, key: str, value: str) -> None:
+    con.execute("DELETE FROM tl_meta WHERE key = ?", [key])
+    con.execute("INSERT INTO tl_meta VALUES (?, ?)", [key, value])
+
+
+def stored_spec(con: duckdb.DuckDBPyConnection) -> Spec:
+    text = meta(con).get("spec")
+    if text is None:
+        raise StoreError("the store holds no spec")
+    return parse_spec(text, path="<spec stored in the store>")
+
+
+def resolve(store: str | Path | None, env: str | None, default_dir: Path | None = None) -> Path:
+    """Which store a command means: --store, then $TRENDLEDGER_STORE, then the default name."""
+    if store:
+        return Path(store)
+    if env:
+        return Path(env)
+    return (default_dir or Path.cwd()) / DEFAULT_NAME
