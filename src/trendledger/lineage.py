@@ -11,7 +11,7 @@ import duckdb
 import pandas as pd
 
 from .errors import InputError, StoreError
-from .store import utcnow
+from .store import first_row, utcnow
 
 
 def batches(con: duckdb.DuckDBPyConnection, batch: int | None = None) -> pd.DataFrame:
@@ -52,8 +52,7 @@ def retract(
     if not why.strip():
         raise InputError("say why with --why; the reason is kept in the lineage")
     if batch is not None:
-        found = con.execute("SELECT status FROM ingest_batches WHERE batch_id = ?",
-                            [batch]).fetchone()
+        found = first_row(con, "SELECT status FROM ingest_batches WHERE batch_id = ?", [batch])
         if found is None:
             raise StoreError(f"there is no batch {batch}")
         if found[0] == "retracted":
@@ -62,12 +61,11 @@ def retract(
             "SELECT file_id FROM ingest_files WHERE batch_id = ? AND status = 'loaded'",
             [batch]).fetchall()]
     else:
-        row = con.execute(
-            "SELECT file_id FROM ingest_files WHERE path = ? AND status = 'loaded'", [path]
-        ).fetchone()
+        row = first_row(
+            con, "SELECT file_id FROM ingest_files WHERE path = ? AND status = 'loaded'", [path]
+        )
         if row is None:
-            known = con.execute("SELECT count(*) FROM ingest_files WHERE path = ?",
-                                [path]).fetchone()
+            known = first_row(con, "SELECT count(*) FROM ingest_files WHERE path = ?", [path])
             what = "has no loaded rows" if known and known[0] else "is not in the lineage"
             raise StoreError(f"file {path!r} {what}",
                              hint="paths are relative to the spec's folder; see 'lineage --files'")
@@ -75,9 +73,10 @@ def retract(
     now = utcnow()
     con.execute("BEGIN TRANSACTION")
     try:
-        removed = con.execute(
-            "SELECT count(*) FROM measurements WHERE list_contains($ids, file_id)", {"ids": ids}
-        ).fetchone()
+        removed = first_row(
+            con, "SELECT count(*) FROM measurements WHERE list_contains($ids, file_id)",
+            {"ids": ids},
+        )
         con.execute("DELETE FROM measurements WHERE list_contains($ids, file_id)", {"ids": ids})
         con.execute(
             "UPDATE ingest_files SET status = 'retracted', changed_at = $now, message = $why "
@@ -144,10 +143,11 @@ def check(con: duckdb.DuckDBPyConnection, root: Path) -> CheckReport:
             report.changed.append(path)
         else:
             report.fine += 1
-    orphans = con.execute(
+    orphans = first_row(
+        con,
         "SELECT count(*) FROM measurements WHERE file_id NOT IN "
-        "(SELECT file_id FROM ingest_files WHERE status = 'loaded')"
-    ).fetchone()
+        "(SELECT file_id FROM ingest_files WHERE status = 'loaded')",
+    )
     if orphans and orphans[0]:
         report.count_mismatch.append(f"{orphans[0]} rows belong to no loaded file")
     for (paths,) in con.execute(

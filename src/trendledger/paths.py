@@ -65,11 +65,15 @@ def expand(patterns: list[str], base: Path) -> list[Path]:
 
 
 def relative_to_root(path: Path, root: Path) -> str | None:
-    """The path as the lineage records it (relative to the spec folder), or None if outside."""
+    """The path as the lineage records it (relative to the spec folder), or None if outside.
+
+    ``root`` must already be resolved; the cheap lexical test comes first because
+    it is called once per file of a batch.
+    """
     try:
-        return path.resolve().relative_to(root.resolve()).as_posix()
+        return path.absolute().relative_to(root).as_posix()
     except ValueError:
         try:
-            return path.absolute().relative_to(root.absolute()).as_posix()
+            return path.resolve().relative_to(root).as_posix()
         except ValueError:
             return None

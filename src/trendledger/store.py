@@ -11,6 +11,7 @@ import datetime as dt
 import time
 from collections.abc import Callable
 from pathlib import Path
+from typing import Any
 
 import duckdb
 from sqlglot import exp
@@ -56,7 +57,14 @@ def connect(
     delay = 0.05
     while True:
         try:
-            con = duckdb.connect(str(path), read_only=read_only, config=config or {})
+            settings = dict(config or {})
+            lock = bool(settings.pop("lock_configuration", False))
+            con = duckdb.connect(str(path), read_only=read_only, config=settings)
+            # Session settings first, then the lock: DuckDB's own progress bar would
+            # write to our stdout, and a locked connection can no longer turn it off.
+            con.execute("SET enable_progress_bar = false")
+            if lock:
+                con.execute("SET lock_configuration = true")
         except duckdb.IOException as err:
             if not _is_lock_error(err):
                 raise StoreError(f"cannot open the store: {_first_line(err)}",
@@ -72,11 +80,23 @@ def connect(
         except duckdb.Error as err:
             raise StoreError(f"cannot open the store: {_first_line(err)}", file=str(path)) from err
         try:
-            con.execute("SELECT value FROM tl_meta WHERE key = 'schema_version'").fetchone()
+            con.execute("SELECT value FROM tl_meta WHERE key = 'schema_version'").fetchall()
         except duckdb.Error as err:
             con.close()
             raise StoreError("this file is not a trendledger store", file=str(path)) from err
         return con
+
+
+def first_row(
+    con: duckdb.DuckDBPyConnection, sql: str, params: object = None
+) -> tuple[Any, ...] | None:
+    """The first row of a query, reading the result to its end.
+
+    DuckDB 2 refuses further work on a connection while a result is only partly
+    fetched, so ``fetchone()`` on a longer result would leave the connection stuck.
+    """
+    rows = con.execute(sql, params).fetchall()
+    return tuple(rows[0]) if rows else None
 
 
 def _first_line(err: Exception) -> str:

@@ -1,0 +1,254 @@
+"""The ``trendledger`` command: parse arguments, call the library, print. No logic here."""
+
+from __future__ import annotations
+
+import json
+import sys
+from pathlib import Path
+from typing import Annotated
+
+import typer
+
+from . import __version__, output
+from .errors import TrendledgerError
+from .ledger import DEFAULT_WAIT, Ledger, default_store
+
+app = typer.Typer(
+    add_completion=False,
+    no_args_is_help=True,
+    help="Keep daily instrument batches in one DuckDB store and fit per-unit linear trends.",
+    pretty_exceptions_enable=False,
+)
+
+StoreOpt = Annotated[
+    str | None,
+    typer.Option("--store", help="Store file (default: $TRENDLEDGER_STORE or ./trendledger.duckdb)"),
+]
+WaitOpt = Annotated[
+    float, typer.Option("--wait", help="Seconds to wait while another process writes the store")
+]
+FormatOpt = Annotated[
+    str, typer.Option("--format", help="table, csv, json or markdown")
+]
+
+
+def _fail(err: TrendledgerError) -> None:
+    typer.echo(f"trendledger: error: {err}", err=True)
+    raise typer.Exit(err.exit_code)
+
+
+def _open(store: str | None, *, read_only: bool, wait: float) -> Ledger:
+    return Ledger.open(default_store(store), read_only=read_only, wait=wait)
+
+
+def _print(df: object, fmt: str) -> None:
+    if fmt not in output.FORMATS:
+        raise typer.BadParameter(f"choose one of {', '.join(output.FORMATS)}", param_hint="--format")
+    typer.echo(output.render(df, fmt), nl=False)  # type: ignore[arg-type]
+
+
+class _Bar:
+    """A one-line progress bar on a terminal; silent otherwise."""
+
+    def __init__(self) -> None:
+        self.on = sys.stderr.isatty()
+
+    def __call__(self, stage: str, done: int, total: int) -> None:
+        if not self.on or total < 50:
+            return
+        width = 30
+        filled = width * done // max(total, 1)
+        sys.stderr.write(f"\r{stage:>5} [{'#' * filled}{'.' * (width - filled)}] {done}/{total}")
+        if done >= total:
+            sys.stderr.write("\n")
+        sys.stderr.flush()
+
+
+@app.command()
+def init(
+    spec: Annotated[Path, typer.Option("--spec", help="The spec file (TOML)")],
+    store: StoreOpt = None,
+    force: Annotated[bool, typer.Option("--force", help="Replace an existing store")] = False,
+) -> None:
+    """Create a store for a spec; later commands need only the store."""
+    try:
+        target = store or None
+        if target is None:
+            import os
+
+            target = os.environ.get("TRENDLEDGER_STORE")
+        with Ledger.init(spec, target, force=force) as led:
+            typer.echo(f"created {led.path} for {spec} ({len(led.spec.fits)} fit(s))")
+    except TrendledgerError as err:
+        _fail(err)
+
+
+@app.command()
+def append(
+    patterns: Annotated[list[str] | None, typer.Argument(help="Files or globs (default: the spec's template)")] = None,
+    store: StoreOpt = None,
+    replace: Annotated[bool, typer.Option("--replace", help="Load changed files over their old rows")] = False,
+    skip_bad: Annotated[bool, typer.Option("--skip-bad", help="Load the good files, record bad ones as rejected (exit 3)")] = False,
+    rehash: Annotated[bool, typer.Option("--rehash", help="Hash every file even if size and time are unchanged")] = False,
+    as_json: Annotated[bool, typer.Option("--json", help="Print the batch summary as JSON")] = False,
+    wait: WaitOpt = DEFAULT_WAIT,
+) -> None:
+    """Append new files as one batch, with their lineage, in one transaction."""
+    try:
+        with _open(store, read_only=False, wait=wait) as led:
+            summary = led.append(patterns or None, replace=replace, skip_bad=skip_bad,
+                                 rehash=rehash, progress=_Bar())
+    except TrendledgerError as err:
+        _fail(err)
+        return
+    if as_json:
+        typer.echo(json.dumps(summary.to_dict(), indent=1))
+    else:
+        if summary.batch_id is None:
+            typer.echo(f"nothing new: {summary.unchanged} file(s) already in the store")
+        else:
+            typer.echo(
+                f"batch {summary.batch_id}: {summary.files} file(s), {summary.rows} row(s) loaded; "
+                f"{summary.skipped} identical, {summary.unchanged} unchanged, "
+                f"{summary.replaced} replaced, {summary.rejected} rejected"
+            )
+        for o in summary.outcomes:
+            if o.status == "rejected":
+                typer.echo(f"  rejected {o.path}: {o.message}", err=True)
+    if summary.rejected:
+        raise typer.Exit(3)
+
+
+@app.command("lineage")
+def lineage_cmd(
+    files: Annotated[bool, typer.Option("--files", help="List files instead of batches")] = False,
+    batch: Annotated[int | None, typer.Option("--batch", help="Only this batch")] = None,
+    path: Annotated[str | None, typer.Option("--path", help="Only files whose path matches this glob")] = None,
+    fmt: FormatOpt = "table",
+    store: StoreOpt = None,
+    wait: WaitOpt = DEFAULT_WAIT,
+) -> None:
+    """List ingest batches, or files with --files."""
+    try:
+        with _open(store, read_only=True, wait=wait) as led:
+            df = led.lineage(files=files or path is not None, batch=batch, path=path)
+    except TrendledgerError as err:
+        _fail(err)
+        return
+    _print(df, fmt)
+
+
+@app.command()
+def retract(
+    why: Annotated[str, typer.Option("--why", help="The reason, kept in the lineage")],
+    batch: Annotated[int | None, typer.Option("--batch", help="Retract a whole batch")] = None,
+    file: Annotated[str | None, typer.Option("--file", help="Retract one file (path as in the lineage)")] = None,
+    store: StoreOpt = None,
+    wait: WaitOpt = DEFAULT_WAIT,
+) -> None:
+    """Remove the rows of a batch or a file; the lineage keeps them, marked retracted."""
+    try:
+        with _open(store, read_only=False, wait=wait) as led:
+            done = led.retract(why=why, batch=batch, file=file)
+    except TrendledgerError as err:
+        _fail(err)
+        return
+    typer.echo(f"retracted {done['files']} file(s), {done['rows']} row(s)")
+
+
+@app.command()
+def check(
+    store: StoreOpt = None,
+    root: Annotated[Path | None, typer.Option("--root", help="Folder the lineage paths are relative to (default: the spec's)")] = None,
+    as_json: Annotated[bool, typer.Option("--json", help="Print the report as JSON")] = False,
+    wait: WaitOpt = DEFAULT_WAIT,
+) -> None:
+    """Re-hash source files against the lineage and recount rows (exit 1 on disagreement)."""
+    try:
+        with _open(store, read_only=True, wait=wait) as led:
+            report = led.check(root)
+    except TrendledgerError as err:
+        _fail(err)
+        return
+    if as_json:
+        typer.echo(json.dumps(report.to_dict(), indent=1))
+    else:
+        typer.echo(f"fine: {report.fine}  missing: {len(report.missing)}  "
+                   f"changed: {len(report.changed)}  row counts off: {len(report.count_mismatch)}")
+        for p in report.changed:
+            typer.echo(f"  changed since loaded: {p}")
+        for p in report.missing:
+            typer.echo(f"  missing on disk: {p}")
+        for p in report.count_mismatch:
+            typer.echo(f"  row count: {p}")
+        for group in report.same_content:
+            typer.echo(f"  identical content: {', '.join(group)}")
+        for p in report.duplicate_rows:
+            typer.echo(f"  repeated rows: {p}")
+    if not report.ok:
+        raise typer.Exit(1)
+
+
+@app.command()
+def fits(
+    name: Annotated[str | None, typer.Argument(help="Fit name (optional with one fit)")] = None,
+    where: Annotated[str | None, typer.Option("--where", help="Filter, e.g. \"r2 < 0.9 AND n > 10\"")] = None,
+    sort: Annotated[str | None, typer.Option("--sort", help="Column to sort by")] = None,
+    desc: Annotated[bool, typer.Option("--desc", help="Sort descending")] = False,
+    limit: Annotated[int | None, typer.Option("--limit", help="At most this many rows")] = None,
+    view: Annotated[str | None, typer.Option("--view", help="A companion view, e.g. windows, points, crossing, alerts")] = None,
+    fmt: FormatOpt = "table",
+    store: StoreOpt = None,
+    wait: WaitOpt = DEFAULT_WAIT,
+) -> None:
+    """Per-group linear fits from the store's views."""
+    try:
+        with _open(store, read_only=True, wait=wait) as led:
+            df = led.fits(name, where, sort=sort, desc=desc, limit=limit, view=view)
+    except TrendledgerError as err:
+        _fail(err)
+        return
+    _print(df, fmt)
+
+
+@app.command("views")
+def views_cmd(store: StoreOpt = None, fmt: FormatOpt = "table", wait: WaitOpt = DEFAULT_WAIT) -> None:
+    """List the views and macros installed in the store, with what each holds."""
+    try:
+        with _open(store, read_only=True, wait=wait) as led:
+            df = led.views()
+    except TrendledgerError as err:
+        _fail(err)
+        return
+    _print(df, fmt)
+
+
+@app.command()
+def demo(
+    folder: Annotated[Path, typer.Argument(help="Where to write the demo lab")] = Path("demo-lab"),
+    days: Annotated[int | None, typer.Option("--days", help="Only the first N days")] = None,
+) -> None:
+    """Generate the bundled battery-lab scenario, build a store day by day, print the fits."""
+    from .demo import run
+
+    try:
+        run(folder, days=days, echo=typer.echo)
+    except TrendledgerError as err:
+        _fail(err)
+
+
+def version_callback(value: bool) -> None:
+    if value:
+        typer.echo(f"trendledger {__version__}")
+        raise typer.Exit()
+
+
+@app.callback()
+def main_options(
+    version: Annotated[bool, typer.Option("--version", callback=version_callback, is_eager=True, help="Print the version")] = False,
+) -> None:
+    """Keep daily instrument batches in one DuckDB store and fit per-unit linear trends."""
+
+
+def main() -> None:
+    app()

@@ -1,0 +1,179 @@
+"""The public entry object: one store, opened on a path, with a method per CLI verb."""
+
+from __future__ import annotations
+
+import os
+import sys
+from pathlib import Path
+from types import TracebackType
+from typing import Any
+
+import duckdb
+import pandas as pd
+
+from . import fits as fits_mod
+from . import ingest, lineage, store, views
+from .errors import StoreError
+from .ingest import BatchSummary, Progress
+from .lineage import CheckReport
+from .spec import Spec
+from .spec import load as load_spec
+
+#: Seconds a command waits for another process's lock before giving up.
+DEFAULT_WAIT = 5.0
+#: A read-only connection that cannot touch files or change its own settings.
+LOCKED: dict[str, str | bool] = {
+    "enable_external_access": False,
+    "autoload_known_extensions": False,
+    "autoinstall_known_extensions": False,
+    "python_enable_replacements": False,
+    "lock_configuration": True,
+}
+
+
+class Ledger:
+    """A trendledger store.
+
+    >>> with Ledger.open("trendledger.duckdb", read_only=True) as led:  # doctest: +SKIP
+    ...     led.fits("fade").head()
+    """
+
+    def __init__(self, path: Path, con: duckdb.DuckDBPyConnection, read_only: bool) -> None:
+        self.path = path
+        self.con = con
+        self.read_only = read_only
+        self._meta = store.meta(con)
+        self.spec: Spec = store.stored_spec(con)
+
+    # -- opening ---------------------------------------------------------------------------
+    @classmethod
+    def init(
+        cls, spec_path: str | Path, store_path: str | Path | None = None, *, force: bool = False
+    ) -> Ledger:
+        """Create a store for the spec (default: ``trendledger.duckdb`` beside it) and open it."""
+        spec_file = Path(spec_path)
+        spec = load_spec(spec_file)
+        root = spec_file.resolve().parent
+        target = Path(store_path) if store_path else root / store.DEFAULT_NAME
+        store.create(target, spec, root=root, force=force)
+        led = cls.open(target)
+        led._install_views()
+        return led
+
+    @classmethod
+    def open(
+        cls, path: str | Path, *, read_only: bool = False, wait: float = DEFAULT_WAIT
+    ) -> Ledger:
+        """Open an existing store; a read-only store cannot write and cannot read files."""
+        target = Path(path)
+        con = store.connect(target, read_only=read_only, wait=wait,
+                            config=dict(LOCKED) if read_only else None)
+        return cls(target, con, read_only)
+
+    def close(self) -> None:
+        self.con.close()
+
+    def __enter__(self) -> Ledger:
+        return self
+
+    def __exit__(
+        self,
+        kind: type[BaseException] | None,
+        value: BaseException | None,
+        tb: TracebackType | None,
+    ) -> None:
+        self.close()
+
+    # -- facts -----------------------------------------------------------------------------
+    @property
+    def root(self) -> Path:
+        """The spec's folder: file paths in the lineage are relative to it."""
+        return Path(self._meta["root"])
+
+    @property
+    def info(self) -> dict[str, str]:
+        """Store metadata (spec hash, schema version, creation time) without the spec text."""
+        return {k: v for k, v in self._meta.items() if k != "spec"}
+
+    def _writable(self) -> None:
+        if self.read_only:
+            raise StoreError("the store was opened read-only", file=str(self.path))
+
+    def _install_views(self) -> int:
+        self._writable()
+        self.con.execute("BEGIN TRANSACTION")
+        try:
+            n = views.install(self.con, self.spec)
+            self.con.execute("COMMIT")
+        except BaseException:
+            self.con.execute("ROLLBACK")
+            raise
+        return n
+
+    # -- verbs -----------------------------------------------------------------------------
+    def append(
+        self,
+        patterns: list[str] | None = None,
+        *,
+        replace: bool = False,
+        skip_bad: bool = False,
+        rehash: bool = False,
+        progress: Progress | None = None,
+        command: str | None = None,
+    ) -> BatchSummary:
+        """Append files (default: every file the spec's template matches) as one batch."""
+        self._writable()
+        return ingest.append(
+            self.con, self.spec, self.root, patterns,
+            replace=replace, skip_bad=skip_bad, rehash=rehash, progress=progress,
+            command=command if command is not None else " ".join(sys.argv),
+        )
+
+    def lineage(
+        self, files: bool = False, *, batch: int | None = None, path: str | None = None
+    ) -> pd.DataFrame:
+        """Batches, or with ``files=True`` every file; filter by batch id or a path glob."""
+        if files:
+            return lineage.files(self.con, batch=batch, path=path)
+        return lineage.batches(self.con, batch=batch)
+
+    def retract(
+        self, *, why: str, batch: int | None = None, file: str | None = None
+    ) -> dict[str, int]:
+        """Remove a batch's or a file's rows; the lineage keeps them, marked retracted."""
+        self._writable()
+        return lineage.retract(self.con, why=why, batch=batch, path=file)
+
+    def check(self, root: str | Path | None = None) -> CheckReport:
+        """Re-hash loaded files on disk and recount rows; see :class:`CheckReport`."""
+        return lineage.check(self.con, Path(root) if root else self.root)
+
+    def fits(
+        self,
+        name: str | None = None,
+        where: str | None = None,
+        *,
+        sort: str | None = None,
+        desc: bool = False,
+        limit: int | None = None,
+        view: str | None = None,
+    ) -> pd.DataFrame:
+        """Per-group fits of ``name`` (optional with one fit); ``view`` picks a companion view."""
+        fit = self.spec.fit(name)
+        target = fit.view + (f"_{view}" if view else "")
+        return fits_mod.read(self.con, target, where=where, sort=sort, desc=desc, limit=limit)
+
+    def views(self) -> pd.DataFrame:
+        """Installed views and macro files with their descriptions."""
+        rows = views.listing(self.con)
+        return pd.DataFrame(rows, columns=["name", "kind", "fit", "description"])
+
+    def query(self, sql: str, params: dict[str, Any] | None = None) -> pd.DataFrame:
+        """Run one read-only statement with bound named parameters (``$name``)."""
+        from .query import run
+
+        return run(self.con, sql, params or {})
+
+
+def default_store(store_option: str | None) -> Path:
+    return store.resolve(store_option, os.environ.get("TRENDLEDGER_STORE"))

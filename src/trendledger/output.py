@@ -1,0 +1,72 @@
+"""Format DataFrames for the terminal and for files: table, csv, json, markdown."""
+
+from __future__ import annotations
+
+import json
+import math
+from typing import Any
+
+import pandas as pd
+
+FORMATS = ("table", "csv", "json", "markdown")
+
+
+def _cell(value: Any, digits: int) -> str:
+    if value is None or value is pd.NA or value is pd.NaT:
+        return ""
+    if isinstance(value, float):
+        if math.isnan(value):
+            return ""
+        return f"{value:.{digits}g}"
+    return str(value)
+
+
+def _plain(value: Any) -> Any:
+    """A JSON-ready scalar; NULL stays null, floats keep every digit."""
+    if value is None or value is pd.NA or value is pd.NaT:
+        return None
+    if isinstance(value, float) and math.isnan(value):
+        return None
+    if hasattr(value, "isoformat"):
+        return value.isoformat()
+    if hasattr(value, "item"):
+        return value.item()
+    return value
+
+
+def rows(df: pd.DataFrame) -> list[dict[str, Any]]:
+    return [
+        {col: _plain(v) for col, v in zip(df.columns, rec, strict=True)}
+        for rec in df.itertuples(index=False, name=None)
+    ]
+
+
+def render(df: pd.DataFrame, fmt: str = "table", digits: int = 6) -> str:
+    """Text for ``df`` in one of FORMATS. Tables round to ``digits``; csv and json do not."""
+    if fmt == "csv":
+        return str(df.to_csv(index=False, float_format="%.17g"))
+    if fmt == "json":
+        return json.dumps(rows(df), indent=1, default=str) + "\n"
+    cells = [[_cell(v, digits) for v in rec] for rec in df.itertuples(index=False, name=None)]
+    header = [str(c) for c in df.columns]
+    if fmt == "markdown":
+        lines = ["| " + " | ".join(header) + " |", "|" + "|".join("---" for _ in header) + "|"]
+        lines += ["| " + " | ".join(c.replace("|", "\\|") for c in row) + " |" for row in cells]
+        return "\n".join(lines) + "\n"
+    if fmt != "table":
+        raise ValueError(f"unknown format {fmt!r}")
+    widths = [len(h) for h in header]
+    for row in cells:
+        widths = [max(w, len(c)) for w, c in zip(widths, row, strict=True)]
+    numeric = [pd.api.types.is_numeric_dtype(df[c]) for c in df.columns]
+
+    def line(values: list[str]) -> str:
+        parts = [v.rjust(w) if num else v.ljust(w)
+                 for v, w, num in zip(values, widths, numeric, strict=True)]
+        return "  ".join(parts).rstrip()
+
+    out = [line(header), line(["-" * w for w in widths])]
+    out += [line(row) for row in cells]
+    if not cells:
+        out.append("(no rows)")
+    return "\n".join(out) + "\n"
