@@ -17,8 +17,8 @@ from pathlib import Path
 import duckdb
 import numpy as np
 import pandas as pd
-
 from common import table, timed
+
 from trendledger import Ledger
 
 SPEC = """\
@@ -75,6 +75,7 @@ def pandas_loop(root: Path, db: Path) -> int:
         frames.append(df)
     all_rows = pd.concat(frames, ignore_index=True)
     con = duckdb.connect(str(db))
+    con.register("all_rows", all_rows)
     con.execute("CREATE TABLE m AS SELECT * FROM all_rows")
     n = con.execute("SELECT count(*) FROM m").fetchone()
     con.close()

@@ -194,7 +194,8 @@ def test_paths_with_spaces_quotes_and_sql_are_data(lab: Lab) -> None:
 
 def test_gzip_input(tmp_path) -> None:
     lab = Lab(tmp_path, SPEC.replace("{cell}.csv", "{cell}.csv.gz"))
-    lab.write("incoming/2026-03-02/c01.csv.gz", gzip.compress(b"cycle,capacity_ah\n1,3.0\n2,2.9\n"))
+    body = gzip.compress(b"cycle,capacity_ah\n1,3.0\n2,2.9\n")
+    lab.write("incoming/2026-03-02/c01.csv.gz", body)
     with lab.init() as led:
         assert led.append().rows == 2
     lab.write("incoming/2026-03-02/c02.csv.gz", b"not gzip at all")
@@ -209,7 +210,8 @@ def test_parquet_input(tmp_path) -> None:
     con = duckdb.connect()
     con.execute(f"COPY (SELECT 1::INT AS cycle, 3.0::DOUBLE AS capacity_ah UNION ALL "
                 f"SELECT 2, 2.9) TO '{target / 'c01.parquet'}'")
-    con.execute(f"COPY (SELECT 1::INT AS cycle, 3.0::DOUBLE AS wrong) TO '{target / 'c02.parquet'}'")
+    con.execute(f"COPY (SELECT 1::INT AS cycle, 3.0::DOUBLE AS wrong) "
+                f"TO '{target / 'c02.parquet'}'")
     with lab.init() as led:
         summary = led.append(skip_bad=True)
         assert (summary.rows, summary.rejected) == (2, 1)
@@ -220,7 +222,7 @@ def test_parquet_input(tmp_path) -> None:
 
 def test_jsonl_input(tmp_path) -> None:
     lab = Lab(tmp_path, SPEC.replace("{cell}.csv", "{cell}.jsonl").replace('"csv"', '"jsonl"'))
-    lines = [json.dumps({"cycle": 1, "capacity_ah": 3.0}), json.dumps({"cycle": 2, "capacity_ah": 2.9})]
+    lines = [json.dumps({"cycle": c, "capacity_ah": v}) for c, v in ((1, 3.0), (2, 2.9))]
     lab.write("incoming/2026-03-02/c01.jsonl", "\n".join(lines) + "\n")
     with lab.init() as led:
         assert led.append().rows == 2
@@ -289,8 +291,9 @@ def test_duplicate_rows_are_kept_and_reported(lab: Lab) -> None:
 def test_read_only_store_refuses_writes(lab: Lab) -> None:
     lab.day("2026-03-02", {"c01": [(1, 3.0)]})
     lab.init().close()
-    with Ledger.open(lab.store, read_only=True) as led, pytest.raises(StoreError, match="read-only"):
-        led.append()
+    with Ledger.open(lab.store, read_only=True) as led:
+        with pytest.raises(StoreError, match="read-only"):
+            led.append()
 
 
 def test_init_refuses_existing_store_unless_forced(lab: Lab) -> None:

@@ -223,6 +223,44 @@ def views_cmd(store: StoreOpt = None, fmt: FormatOpt = "table", wait: WaitOpt = 
     _print(df, fmt)
 
 
+def _param(text: str) -> tuple[str, object]:
+    name, sep, raw = text.partition("=")
+    if not sep or not name.strip():
+        raise typer.BadParameter(f"{text!r}: write NAME=VALUE", param_hint="--param")
+    return name.strip(), output.parse_value(raw)
+
+
+@app.command()
+def query(
+    sql: Annotated[str, typer.Argument(help="One read-only SQL statement; $name for parameters")],
+    param: Annotated[list[str] | None, typer.Option("--param", help="NAME=VALUE, bound to $NAME (numbers become numbers; quote to keep text)")] = None,
+    fmt: Annotated[str, typer.Option("--format", help="table, csv, json, markdown or parquet")] = "table",
+    out: Annotated[Path | None, typer.Option("--out", help="Write to this file instead of the terminal")] = None,
+    store: StoreOpt = None,
+    wait: WaitOpt = DEFAULT_WAIT,
+) -> None:
+    """Run one read-only SQL statement against the store."""
+    params = dict(_param(p) for p in param or [])
+    if fmt not in (*output.FORMATS, "parquet"):
+        raise typer.BadParameter("choose table, csv, json, markdown or parquet", param_hint="--format")
+    if fmt == "parquet" and out is None:
+        raise typer.BadParameter("parquet output needs --out FILE", param_hint="--format")
+    try:
+        with _open(store, read_only=True, wait=wait) as led:
+            df = led.query(sql, params)
+    except TrendledgerError as err:
+        _fail(err)
+        return
+    if out is None:
+        _print(df, fmt)
+    elif fmt == "parquet":
+        output.write_parquet(df, out)
+        typer.echo(f"wrote {len(df)} row(s) to {out}")
+    else:
+        out.write_text(output.render(df, fmt), encoding="utf-8")
+        typer.echo(f"wrote {len(df)} row(s) to {out}")
+
+
 @app.command()
 def demo(
     folder: Annotated[Path, typer.Argument(help="Where to write the demo lab")] = Path("demo-lab"),

@@ -4,8 +4,11 @@ from __future__ import annotations
 
 import json
 import math
+import re
+from pathlib import Path
 from typing import Any
 
+import duckdb
 import pandas as pd
 
 FORMATS = ("table", "csv", "json", "markdown")
@@ -70,3 +73,24 @@ def render(df: pd.DataFrame, fmt: str = "table", digits: int = 6) -> str:
     if not cells:
         out.append("(no rows)")
     return "\n".join(out) + "\n"
+
+
+def parse_value(raw: str) -> Any:
+    """A --param value: an integer or decimal number as a number, quoted text as text."""
+    text = raw.strip()
+    if len(text) >= 2 and text[0] == text[-1] and text[0] in "'\"":
+        return text[1:-1]
+    if re.fullmatch(r"[+-]?\d+", text):
+        return int(text)
+    if re.fullmatch(r"[+-]?(\d+\.\d*|\.\d+|\d+)([eE][+-]?\d+)?", text):
+        return float(text)
+    return raw
+
+
+def write_parquet(df: pd.DataFrame, path: Path) -> None:
+    """Write a result as Parquet with DuckDB's own writer (no extra dependency)."""
+    con = duckdb.connect()
+    try:
+        con.from_df(df).write_parquet(str(path))
+    finally:
+        con.close()

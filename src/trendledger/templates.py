@@ -153,7 +153,9 @@ def _expand(holder: exp.Expression, ident: exp.Identifier, key: str, names: list
     arg_key = holder.arg_key
     siblings = parent.args.get(arg_key) if parent is not None else None
     if not isinstance(siblings, list):
-        raise TemplateError(f"list placeholder __{key}__ must stand in a list (select, group by, ...)")
+        raise TemplateError(
+            f"list placeholder __{key}__ must stand in a list (select, group by, ...)"
+        )
     table = holder.args.get("table") if isinstance(holder, exp.Column) else None
     new: list[exp.Expression] = []
     for name in names:
