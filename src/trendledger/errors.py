@@ -36,12 +36,16 @@ class TrendledgerError(Exception):
 
     def detail(self) -> str:
         """The message with line and column but without the file name (lineage keeps it)."""
-        text = ""
-        if self.file is None and self.line is not None:
-            text += f"line {self.line}: "
-        if self.column is not None:
-            text += f"column {self.column}: "
-        text += self.message
+        if self.file is None:
+            # No file (a query, a --where): the message leads, the position follows.
+            text = self.message
+            if self.line is not None:
+                text += f" (at line {self.line}"
+                text += f", column {self.column})" if self.column is not None else ")"
+        else:
+            text = self.message
+            if self.column is not None:
+                text = f"column {self.column}: {text}"
         if self.hint:
             text += f" ({self.hint})"
         return text
