@@ -599,8 +599,9 @@ def _transaction(
     assert batch_id is not None and next_file is not None
     bid, fid = int(batch_id[0]), int(next_file[0])
     for c in cands:
-        c.file_id = fid
-        fid += 1
+        if c.decision != "unchanged" or c.problem is not None:
+            c.file_id = fid  # only files that get a lineage row take an id
+            fid += 1
 
     # DuckDB expands glob characters even in a list of paths, so a file called
     # "a[1].csv" would read "a1.csv": such files are read through a plain-named link.
@@ -639,7 +640,7 @@ def _transaction(
         con.execute(
             "SELECT file_id, count(*) FROM measurements WHERE file_id BETWEEN ? AND ? "
             "GROUP BY file_id",
-            [min(c.file_id for c in cands), max(c.file_id for c in cands)],
+            [min(c.file_id for c in loaded), max(c.file_id for c in loaded)],
         ).fetchall()
     ) if loaded else {}
 
