@@ -261,6 +261,47 @@ def query(
         typer.echo(f"wrote {len(df)} row(s) to {out}")
 
 
+spec_app = typer.Typer(help="Show or change the spec stored in the store.", no_args_is_help=True)
+app.add_typer(spec_app, name="spec")
+
+
+@spec_app.command("show")
+def spec_show(store: StoreOpt = None, wait: WaitOpt = DEFAULT_WAIT) -> None:
+    """Print the spec the store uses now."""
+    try:
+        with _open(store, read_only=True, wait=wait) as led:
+            typer.echo(led.spec.text, nl=False)
+    except TrendledgerError as err:
+        _fail(err)
+
+
+@spec_app.command("update")
+def spec_update(
+    file: Annotated[Path, typer.Argument(help="The changed spec file")],
+    note: Annotated[str | None, typer.Option("--note", help="Why, kept in the spec history")] = None,
+    store: StoreOpt = None,
+    wait: WaitOpt = DEFAULT_WAIT,
+) -> None:
+    """Add columns or fits to a store that holds data; refuse changes that would lose any."""
+    try:
+        with _open(store, read_only=False, wait=wait) as led:
+            change = led.update_spec(file, note=note)
+    except TrendledgerError as err:
+        _fail(err)
+        return
+    if change.empty:
+        typer.echo("the spec is unchanged" if not change.views_rebuilt else "spec text updated")
+        return
+    for name, typ in change.added_columns.items():
+        typer.echo(f"added column {name} {typ} (earlier rows read NULL)")
+    for name in change.added_fits:
+        typer.echo(f"added fit {name}")
+    for name in change.changed_fits:
+        typer.echo(f"changed fit {name}")
+    for name in change.removed_fits:
+        typer.echo(f"removed fit {name} (its views are dropped)")
+
+
 @app.command()
 def demo(
     folder: Annotated[Path, typer.Argument(help="Where to write the demo lab")] = Path("demo-lab"),

@@ -11,9 +11,10 @@ from typing import Any
 import duckdb
 import pandas as pd
 
+from . import evolve, ingest, lineage, store, views
 from . import fits as fits_mod
-from . import ingest, lineage, store, views
 from .errors import StoreError
+from .evolve import SpecChange
 from .ingest import BatchSummary, Progress
 from .lineage import CheckReport
 from .spec import Spec
@@ -162,6 +163,15 @@ class Ledger:
         fit = self.spec.fit(name)
         target = fit.view + (f"_{view}" if view else "")
         return fits_mod.read(self.con, target, where=where, sort=sort, desc=desc, limit=limit)
+
+    def update_spec(self, spec_path: str | Path, note: str | None = None) -> SpecChange:
+        """Switch the store to a changed spec: new columns and fits; nothing stored is lost."""
+        self._writable()
+        new = load_spec(Path(spec_path))
+        change = evolve.apply(self.con, self.spec, new, note=note)
+        self.spec = new
+        self._meta = store.meta(self.con)
+        return change
 
     def views(self) -> pd.DataFrame:
         """Installed views and macro files with their descriptions."""

@@ -21,8 +21,9 @@ from .errors import BusyError, StoreError
 from .spec import Spec
 from .spec import parse as parse_spec
 
-#: Bumped whenever the store's own tables change; see MIGRATIONS.
-SCHEMA_VERSION = 1
+#: The store's own tables are built by sql/schema/NNN_*.sql, applied in order;
+#: a store records the last one it has and is upgraded in place on a write open.
+SCHEMA_VERSION = 2
 #: Oldest DuckDB storage format we write, so 1.5.x clients can open the file.
 STORAGE_VERSION = "v1.5.0"
 DEFAULT_NAME = "trendledger.duckdb"
@@ -80,10 +81,25 @@ def connect(
         except duckdb.Error as err:
             raise StoreError(f"cannot open the store: {_first_line(err)}", file=str(path)) from err
         try:
-            con.execute("SELECT value FROM tl_meta WHERE key = 'schema_version'").fetchall()
+            found = con.execute(
+                "SELECT value FROM tl_meta WHERE key = 'schema_version'"
+            ).fetchall()
         except duckdb.Error as err:
             con.close()
             raise StoreError("this file is not a trendledger store", file=str(path)) from err
+        version = int(found[0][0]) if found else 0
+        if version > SCHEMA_VERSION:
+            con.close()
+            raise StoreError(
+                f"the store has schema version {version}, newer than this tool's "
+                f"{SCHEMA_VERSION}", file=str(path), hint="upgrade trendledger",
+            )
+        if version < SCHEMA_VERSION and not read_only:
+            try:
+                migrate(con, version)
+            except BaseException:
+                con.close()
+                raise
         return con
 
 
@@ -97,6 +113,37 @@ def first_row(
     """
     rows = con.execute(sql, params).fetchall()
     return tuple(rows[0]) if rows else None
+
+
+def schema_steps() -> list[tuple[int, str]]:
+    """(version, relative path) of every schema file, in order."""
+    steps = []
+    for path in sorted((templates.sql_dir() / "schema").glob("*.sql")):
+        steps.append((int(path.name.split("_", 1)[0]), f"schema/{path.name}"))
+    return steps
+
+
+def migrate(con: duckdb.DuckDBPyConnection, version: int) -> list[int]:
+    """Apply every schema step above ``version`` in one transaction; record each one."""
+    applied = []
+    con.execute("BEGIN TRANSACTION")
+    try:
+        for step, relative in schema_steps():
+            if step <= version:
+                continue
+            for stmt in templates.load(relative).render({}):
+                con.execute(stmt)
+            applied.append(step)
+        set_meta(con, "schema_version", str(SCHEMA_VERSION))
+        for step in applied:
+            if step >= 2:  # the log table itself arrives with step 2
+                con.execute("INSERT INTO tl_migrations VALUES (?, ?, ?)",
+                            [step, utcnow(), __version__])
+        con.execute("COMMIT")
+    except BaseException:
+        con.execute("ROLLBACK")
+        raise
+    return applied
 
 
 def _first_line(err: Exception) -> str:
@@ -144,7 +191,7 @@ def create(path: Path, spec: Spec, *, root: Path, force: bool = False) -> None:
             con.execute(stmt)
         con.execute(measurements_ddl(spec))
         meta = {
-            "schema_version": str(SCHEMA_VERSION),
+            "schema_version": "1",
             "spec": spec.text,
             "spec_hash": spec.digest,
             "root": str(root.resolve()),
@@ -153,6 +200,8 @@ def create(path: Path, spec: Spec, *, root: Path, force: bool = False) -> None:
         }
         con.executemany("INSERT INTO tl_meta VALUES (?, ?)", list(meta.items()))
         con.execute("COMMIT")
+        # A new store climbs the same schema steps as an old one: one code path.
+        migrate(con, 1)
     except BaseException:
         con.close()
         path.unlink(missing_ok=True)
