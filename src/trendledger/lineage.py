@@ -11,6 +11,7 @@ import duckdb
 import pandas as pd
 
 from .errors import InputError, StoreError
+from .ingest import cannot_write, database_path, rollback_quietly
 from .store import first_row, utcnow
 
 
@@ -26,7 +27,8 @@ def files(
     con: duckdb.DuckDBPyConnection, batch: int | None = None, path: str | None = None
 ) -> pd.DataFrame:
     """One row per file of every batch; ``path`` is a glob over the recorded relative paths."""
-    clauses, params = [], {}
+    clauses: list[str] = []
+    params: dict[str, object] = {}
     if batch is not None:
         clauses.append("batch_id = $batch")
         params["batch"] = batch
@@ -71,6 +73,7 @@ def retract(
                              hint="paths are relative to the spec's folder; see 'lineage --files'")
         ids = [row[0]]
     now = utcnow()
+    where = database_path(con)
     con.execute("BEGIN TRANSACTION")
     try:
         removed = first_row(
@@ -89,10 +92,14 @@ def retract(
                 "retract_reason = ? WHERE batch_id = ?",
                 [now, why, batch],
             )
-        con.execute("COMMIT")
     except BaseException:
-        con.execute("ROLLBACK")
+        rollback_quietly(con)
         raise
+    try:
+        con.execute("COMMIT")
+    except duckdb.Error as err:  # a full disk or a read-only folder: nothing was changed
+        rollback_quietly(con)
+        raise cannot_write(err, where) from err
     return {"files": len(ids), "rows": int(removed[0]) if removed else 0}
 
 

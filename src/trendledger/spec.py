@@ -102,8 +102,8 @@ class Spec:
         for f in self.fits:
             if f.name == name:
                 return f
-        names = [f.name for f in self.fits]
-        raise SpecError(f"no fit named {name!r}", hint=did_you_mean(name, names))
+        known = [f.name for f in self.fits]
+        raise SpecError(f"no fit named {name!r}", hint=did_you_mean(name, known))
 
     @property
     def all_columns(self) -> dict[str, str]:

@@ -46,7 +46,7 @@ def connect(
     *,
     read_only: bool,
     wait: float = 0.0,
-    config: dict[str, str | bool] | None = None,
+    config: dict[str, Any] | None = None,
 ) -> duckdb.DuckDBPyConnection:
     """Open an existing store, waiting up to ``wait`` seconds for another process's lock."""
     if not path.exists():

@@ -7,7 +7,8 @@ template with sqlglot and replace those identifier nodes in the syntax tree:
 * a string value becomes a *quoted identifier* (column or table name),
 * a list of strings expands in place wherever the placeholder stands in a list
   (SELECT list, GROUP BY, PARTITION BY, USING, ...),
-* a number becomes a numeric literal.
+* a number becomes a numeric literal,
+* a :class:`Text` becomes a string literal (for example a date_trunc unit).
 
 User text is therefore never pasted into SQL: a column called
 ``x"; DROP TABLE t; --`` is just a strange quoted name.
@@ -28,6 +29,10 @@ from sqlglot import exp
 from .errors import TemplateError
 
 PLACEHOLDER = re.compile(r"^__([a-z][a-z0-9_]*)__$")
+
+class Text(str):
+    """A value to substitute as a string literal (plain ``str`` means an identifier)."""
+
 
 Value = str | float | int | Sequence[str]
 
@@ -105,7 +110,7 @@ def parse(path: Path, name: str | None = None) -> Template:
         name=name or path.stem,
         path=path,
         description=_description(text),
-        statements=tuple(statements),
+        statements=tuple(statements),  # type: ignore[arg-type]
         placeholders=frozenset(found),
     )
 
@@ -136,7 +141,9 @@ def _fill(tree: exp.Expression, values: Mapping[str, Value]) -> exp.Expression:
         holder: exp.Expression = ident
         if isinstance(ident.parent, exp.Column) and ident.arg_key == "this":
             holder = ident.parent
-        if isinstance(value, str):
+        if isinstance(value, Text):
+            holder.replace(exp.Literal.string(str(value)))
+        elif isinstance(value, str):
             ident.replace(exp.to_identifier(value, quoted=True))
         elif isinstance(value, bool):
             raise TemplateError(f"placeholder __{key}__ cannot take a boolean")
@@ -150,7 +157,7 @@ def _fill(tree: exp.Expression, values: Mapping[str, Value]) -> exp.Expression:
 def _expand(holder: exp.Expression, ident: exp.Identifier, key: str, names: list[str]) -> None:
     """Splice several quoted identifiers where one placeholder stands in a list."""
     parent = holder.parent
-    arg_key = holder.arg_key
+    arg_key = str(holder.arg_key)
     siblings = parent.args.get(arg_key) if parent is not None else None
     if not isinstance(siblings, list):
         raise TemplateError(

@@ -16,12 +16,20 @@ from sqlglot import exp
 
 from . import templates
 from .spec import Fit, Spec
+from .templates import Text
 
 #: View kinds per fit, in install order (later ones may read earlier ones).
 #: Each is ``sql/views/<file>.sql``; a kind whose file is absent is not installed.
-KINDS: tuple[tuple[str, str, str], ...] = (
-    # (kind, view name suffix, template file)
-    ("fit", "", "fit"),
+KINDS: tuple[tuple[str, str, tuple[str, ...]], ...] = (
+    # (kind, view name suffix, candidate template files under sql/views/): the first
+    # candidate that exists and whose placeholders the fit can all fill is used.
+    ("moments", "_moments", ("moments",)),
+    ("fit", "", ("fit",)),
+    ("windows", "_windows", ("windows", "windows_x")),
+    ("points", "_points", ("points",)),
+    ("change", "_change", ("change",)),
+    ("crossing", "_crossing", ("crossing",)),
+    ("alerts", "_alerts", ("alerts",)),
 )
 
 
@@ -38,9 +46,14 @@ class Planned:
         return hashlib.sha256("\n;\n".join(self.statements).encode()).hexdigest()
 
 
-def fit_values(fit: Fit) -> dict[str, Any]:
-    """Placeholder values a fit offers to its templates; None means 'not configured'."""
-    return {
+def fit_values(spec: Spec, fit: Fit) -> dict[str, Any]:
+    """Placeholder values a fit offers to its templates; None means 'not configured'.
+
+    Names of views of the same fit are offered too (``__fit_view__``,
+    ``__moments_view__`` ...), so a template can read its siblings.
+    """
+    dates = [n for n, t in spec.all_columns.items() if t.startswith(("DATE", "TIMESTAMP"))]
+    values: dict[str, Any] = {
         "source": "measurements",
         "group": list(fit.group),
         "x": fit.x,
@@ -48,31 +61,46 @@ def fit_values(fit: Fit) -> dict[str, Any]:
         "level": fit.level,
         "limit": fit.limit,
         "horizon": fit.horizon,
+        "window": Text(fit.window) if fit.window else None,
+        "window_field": dates[0] if dates else None,
         "window_x": fit.window_x,
         "min_r2": fit.min_r2,
         "alpha": fit.alpha,
     }
+    for kind, suffix, _ in KINDS:
+        values[f"{kind}_view"] = fit.view + suffix
+    return values
 
 
 def template_for(fit: Fit, file: str) -> str:
-    if file == "fit" and fit.through_origin:
-        return "views/fit_origin.sql"
+    """``sql/views/<file>.sql``, or its ``<file>_origin.sql`` twin for a through-origin fit."""
+    if fit.through_origin and (templates.sql_dir() / f"views/{file}_origin.sql").is_file():
+        return f"views/{file}_origin.sql"
     return f"views/{file}.sql"
+
+
+def _pick(fit: Fit, files: tuple[str, ...], values: dict[str, Any]) -> templates.Template | None:
+    for file in files:
+        relative = template_for(fit, file)
+        if not (templates.sql_dir() / relative).is_file():
+            continue
+        tpl = templates.load(relative)
+        if all(values.get(p) is not None for p in tpl.placeholders if p != "view"):
+            return tpl
+    return None
 
 
 def plan(spec: Spec) -> list[Planned]:
     """Every macro and view the spec asks for, rendered but not yet run."""
     out: list[Planned] = []
-    for tpl in templates.load_dir("macros"):
-        out.append(Planned(tpl.name, "macro", None, tpl.description, tuple(tpl.render({}))))
+    for macro in templates.load_dir("macros"):
+        out.append(Planned(macro.name, "macro", None, macro.description,
+                           tuple(macro.render({}))))
     for fit in spec.fits:
-        values = fit_values(fit)
-        for kind, suffix, file in KINDS:
-            relative = template_for(fit, file)
-            if not (templates.sql_dir() / relative).is_file():
-                continue
-            tpl = templates.load(relative)
-            if any(values.get(p) is None for p in tpl.placeholders if p != "view"):
+        values = fit_values(spec, fit)
+        for kind, suffix, files in KINDS:
+            tpl = _pick(fit, files, values)
+            if tpl is None:
                 continue
             name = fit.view + suffix
             stmts = tuple(tpl.render({**values, "view": name}))
