@@ -4,7 +4,7 @@ VENV := .venv
 BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
 
-.PHONY: setup demo test lint typecheck bench fuzz clean
+.PHONY: setup system demo test lint typecheck bench fuzz clean
 
 $(STAMP): pyproject.toml
 	$(PY) -m venv $(VENV)
@@ -13,6 +13,24 @@ $(STAMP): pyproject.toml
 	touch $(STAMP)
 
 setup: $(STAMP)
+
+# Debian packages the engine and browser tests use (PostgreSQL server, Chromium,
+# Java for Spark). Installed only when running as root with apt-get; otherwise
+# those tests skip and say why.
+system:
+	@if [ "$$(id -u)" = 0 ] && command -v apt-get >/dev/null 2>&1; then \
+	  need=""; \
+	  command -v chromium >/dev/null 2>&1 || need="$$need chromium"; \
+	  ls /usr/lib/postgresql/*/bin/initdb >/dev/null 2>&1 || need="$$need postgresql"; \
+	  command -v java >/dev/null 2>&1 || need="$$need default-jre-headless"; \
+	  if [ -n "$$need" ]; then \
+	    echo "installing:$$need"; \
+	    apt-get update -q >/dev/null && \
+	    DEBIAN_FRONTEND=noninteractive apt-get install -y -q --no-install-recommends $$need >/dev/null; \
+	  fi; \
+	else \
+	  echo "not root or no apt-get: PostgreSQL/Chromium tests may skip"; \
+	fi
 
 demo: $(STAMP)
 	$(BIN)/trendledger demo demo/run
@@ -23,11 +41,14 @@ lint: $(STAMP)
 typecheck: $(STAMP)
 	$(BIN)/mypy
 
-test: $(STAMP) lint typecheck
+test: $(STAMP) system lint typecheck
 	$(BIN)/pytest -q
 
 bench: $(STAMP)
-	$(BIN)/python bench/run.py
+	$(BIN)/python bench/append_bench.py
+
+fuzz: $(STAMP)
+	TRENDLEDGER_FUZZ=long $(BIN)/pytest -q tests/test_hostile_input.py
 
 clean:
 	rm -rf $(VENV) demo/run .pytest_cache .mypy_cache .ruff_cache
