@@ -1,0 +1,72 @@
+"""Regenerate the README's tour: run each command on the demo store, paste its real output.
+
+    python demo/tour.py            # rewrites the block between the tour markers in README.md
+
+The demo store is built first (``trendledger demo demo/run``) if it is missing.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+import shlex
+import subprocess
+import sys
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[1]
+RUN = ROOT / "demo" / "run"
+BIN = Path(sys.executable).parent
+
+# (what the step shows, the command as a user types it in demo/run)
+STEPS: list[tuple[str, str]] = [
+    ("Which cells stopped fading in a straight line?",
+     "trendledger fits --where 'r2 < 0.9' --sort r2 --limit 5"),
+    ("The steepest fades, as CSV for a spreadsheet:",
+     "trendledger fits --sort slope --limit 3 --format csv"),
+    ("Where did a cell's rows come from?",
+     "trendledger lineage --path 'incoming/2026-03-22/*' --format markdown"),
+    ("Ask anything in SQL (read-only; parameters are bound, never pasted):",
+     "trendledger query \"SELECT f.cell, f.slope, count(DISTINCT m.file_id) AS files "
+     "FROM fit_fade AS f JOIN measurements AS m USING (cell) WHERE f.cell = \\$cell "
+     "GROUP BY ALL\" --param cell=c07"),
+    ("A write is refused before it runs:",
+     "trendledger query 'DELETE FROM measurements'"),
+    ("Do the files on disk still match what was loaded?",
+     "trendledger check"),
+    ("What views does the store hold?",
+     "trendledger views"),
+]
+
+START, END = "<!-- tour:start -->", "<!-- tour:end -->"
+
+
+def run(command: str) -> str:
+    env = {**os.environ, "PATH": f"{BIN}{os.pathsep}{os.environ.get('PATH', '')}",
+           "COLUMNS": "100"}
+    done = subprocess.run(command, shell=True, cwd=RUN, env=env, capture_output=True, text=True)
+    text = (done.stdout + done.stderr).rstrip()
+    if done.returncode:
+        text += f"\n(exit code {done.returncode})"
+    return text
+
+
+def main() -> None:
+    if not (RUN / "trendledger.duckdb").exists():
+        subprocess.run([str(BIN / "trendledger"), "demo", str(RUN)], check=True,
+                       stdout=subprocess.DEVNULL)
+    blocks = []
+    for words, command in STEPS:
+        shown = command.replace("\\$", "$")
+        blocks.append(f"{words}\n\n```\n$ {shown}\n{run(command)}\n```\n")
+    readme = ROOT / "README.md"
+    text = readme.read_text(encoding="utf-8")
+    body = START + "\n" + "\n".join(blocks) + END
+    text = re.sub(re.escape(START) + ".*?" + re.escape(END), lambda _: body, text, flags=re.S)
+    readme.write_text(text, encoding="utf-8")
+    verbs = ", ".join(shlex.split(c)[1] for _, c in STEPS)
+    print(f"README.md tour: {len(STEPS)} commands ({verbs})")
+
+
+if __name__ == "__main__":
+    main()
