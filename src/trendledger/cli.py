@@ -196,19 +196,55 @@ def fits(
     sort: Annotated[str | None, typer.Option("--sort", help="Column to sort by")] = None,
     desc: Annotated[bool, typer.Option("--desc", help="Sort descending")] = False,
     limit: Annotated[int | None, typer.Option("--limit", help="At most this many rows")] = None,
-    view: Annotated[str | None, typer.Option("--view", help="A companion view, e.g. windows, points, crossing, alerts")] = None,
+    view: Annotated[str | None, typer.Option("--view", help="A companion view, e.g. windows, points, change, crossing, alerts")] = None,
+    break_at: Annotated[float | None, typer.Option("--break-at", help="Chow test for a break in each group's line at this x")] = None,
     fmt: FormatOpt = "table",
     store: StoreOpt = None,
     wait: WaitOpt = DEFAULT_WAIT,
 ) -> None:
     """Per-group linear fits from the store's views."""
+    from .watch import CAUTION
+
     try:
         with _open(store, read_only=True, wait=wait) as led:
-            df = led.fits(name, where, sort=sort, desc=desc, limit=limit, view=view)
+            df = led.fits(name, where, sort=sort, desc=desc, limit=limit, view=view,
+                          break_at=break_at)
     except TrendledgerError as err:
         _fail(err)
         return
     _print(df, fmt)
+    if view == "crossing":
+        # a projection: the caution goes under a table, to stderr beside machine formats
+        typer.echo(CAUTION, err=fmt not in ("table", "markdown"))
+
+
+@app.command()
+def watch(
+    name: Annotated[str | None, typer.Argument(help="Fit name (default: every fit)")] = None,
+    fail_on: Annotated[str | None, typer.Option("--fail-on", help="Exit 1 on an alert at or above this reason: too_few_points < low_r2 < outliers < slope_changed < crossing_soon (default: any alert)")] = None,
+    fmt: FormatOpt = "table",
+    store: StoreOpt = None,
+    wait: WaitOpt = DEFAULT_WAIT,
+) -> None:
+    """Today's alerts grouped by unit, newest first; exit 1 when one is at or above --fail-on."""
+    from . import watch as watch_mod
+
+    if fail_on is not None and fail_on not in watch_mod.SEVERITY:
+        raise typer.BadParameter(f"choose one of {', '.join(watch_mod.SEVERITY)}", param_hint="--fail-on")
+    try:
+        with _open(store, read_only=True, wait=wait) as led:
+            df = led.watch(name)
+    except TrendledgerError as err:
+        _fail(err)
+        return
+    if fmt == "table":
+        typer.echo(watch_mod.render(df), nl=False)
+    else:
+        _print(df, fmt)
+        if df["reason"].isin(watch_mod.PROJECTIONS).any():
+            typer.echo(watch_mod.CAUTION, err=fmt != "markdown")
+    if watch_mod.failing(df, fail_on):
+        raise typer.Exit(1)
 
 
 @app.command("views")
@@ -300,6 +336,26 @@ def spec_update(
         typer.echo(f"changed fit {name}")
     for name in change.removed_fits:
         typer.echo(f"removed fit {name} (its views are dropped)")
+
+
+@app.command()
+def report(
+    out: Annotated[Path, typer.Option("--out", help="Folder for index.html and its PNG images")],
+    name: Annotated[str | None, typer.Argument(help="Fit name (optional with one fit)")] = None,
+    since: Annotated[str | None, typer.Option("--since", help="Lineage of batches started on or after this date (YYYY-MM-DD); slope history from then on")] = None,
+    groups: Annotated[list[str] | None, typer.Option("--groups", help="Also show these groups (repeat, or comma-separated)")] = None,
+    pair: Annotated[str, typer.Option("--pair", help="Two fit columns for the overview, vertical axis first")] = "slope,r2",
+    store: StoreOpt = None,
+    wait: WaitOpt = DEFAULT_WAIT,
+) -> None:
+    """Write a self-contained HTML report (images embedded) of one fit to a folder."""
+    try:
+        with _open(store, read_only=True, wait=wait) as led:
+            page = led.report(name, out=out, since=since, groups=groups, pair=pair)
+    except TrendledgerError as err:
+        _fail(err)
+        return
+    typer.echo(f"wrote {page}")
 
 
 @app.command()

@@ -14,6 +14,7 @@ from pathlib import Path
 from . import demo_data
 from .ledger import Ledger
 from .output import render
+from .report import ReportError
 
 Echo = Callable[[str], None]
 
@@ -70,4 +71,10 @@ def run(folder: Path, *, days: int | None = None, echo: Echo = print) -> Path:
         bent = led.fits(fit.name, where=f"r2 < {fit.min_r2}", sort="r2")
         names = ", ".join(str(v) for v in bent[fit.group[0]]) or "none"
         echo(f"\nnot linear (r2 below {fit.min_r2}): {names}")
+        try:
+            page = led.report(fit.name, out=folder / "report")
+        except ReportError as err:  # matplotlib is an optional extra
+            echo(f"\nno report: {err}")
+        else:
+            echo(f"\nreport: {page}")
     return store_path

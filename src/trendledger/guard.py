@@ -67,6 +67,10 @@ READ_STATEMENT_TYPES: tuple[type[exp.Expression], ...] = (
 )
 
 #: table functions that may appear in FROM: generators and read-only catalog listings
+#: Table macros the store itself installs (e.g. fit_fade_break(x)); users cannot create
+#: macros through the query command, so a name of this shape is one of ours.
+STORE_TABLE_MACRO = re.compile(r"^fit_[a-z0-9_]+_break$")
+
 ALLOWED_TABLE_FUNCTIONS = frozenset(
     {
         "range",
@@ -968,7 +972,8 @@ def _check_function(func: exp.Func, sql: str) -> None:
                 line=line,
                 column=column,
             )
-    if _in_table_position(func) and not names <= ALLOWED_TABLE_FUNCTIONS:
+    ours = {n for n in names if STORE_TABLE_MACRO.match(n)}
+    if _in_table_position(func) and not names - ours <= ALLOWED_TABLE_FUNCTIONS:
         raise QueryRefused(
             f"refused: table function {label}; only "
             + ", ".join(sorted(ALLOWED_TABLE_FUNCTIONS))
@@ -1158,7 +1163,10 @@ def _check_duck_node(node: dict[str, Any], sql: str, catalog: str | None) -> Non
     elif kind == "TABLE_FUNCTION":
         function = node.get("function")
         called = function.get("function_name") if isinstance(function, dict) else None
-        if not isinstance(called, str) or called.casefold() not in ALLOWED_TABLE_FUNCTIONS:
+        if not isinstance(called, str) or (
+            called.casefold() not in ALLOWED_TABLE_FUNCTIONS
+            and not STORE_TABLE_MACRO.match(called.casefold())
+        ):
             raise QueryRefused(
                 f"refused: table function {called}; only "
                 + ", ".join(sorted(ALLOWED_TABLE_FUNCTIONS))

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import os
 import sys
+from datetime import date
 from pathlib import Path
 from types import TracebackType
 from typing import Any
@@ -158,11 +159,28 @@ class Ledger:
         desc: bool = False,
         limit: int | None = None,
         view: str | None = None,
+        break_at: float | None = None,
     ) -> pd.DataFrame:
-        """Per-group fits of ``name`` (optional with one fit); ``view`` picks a companion view."""
+        """Per-group fits of ``name`` (optional with one fit); ``view`` picks a companion view.
+
+        ``break_at=x`` gives the Chow test for a break at x per group instead (watch.break_test).
+        """
         fit = self.spec.fit(name)
+        if break_at is not None:
+            from .watch import break_test
+
+            if view:
+                raise StoreError("give either a companion view or a break point, not both")
+            return break_test(self.con, fit, break_at, where=where, sort=sort, desc=desc,
+                              limit=limit)
         target = fit.view + (f"_{view}" if view else "")
         return fits_mod.read(self.con, target, where=where, sort=sort, desc=desc, limit=limit)
+
+    def watch(self, name: str | None = None) -> pd.DataFrame:
+        """Today's alerts of fit ``name`` (all fits when None), newest unit first (watch.alerts)."""
+        from .watch import alerts
+
+        return alerts(self.con, self.spec, name)
 
     def update_spec(self, spec_path: str | Path, note: str | None = None) -> SpecChange:
         """Switch the store to a changed spec: new columns and fits; nothing stored is lost."""
@@ -183,6 +201,20 @@ class Ledger:
         from .query import run
 
         return run(self.con, sql, params or {})
+
+    def report(
+        self,
+        name: str | None = None,
+        *,
+        out: str | Path,
+        since: str | date | None = None,
+        groups: list[str] | None = None,
+        pair: str | None = None,
+    ) -> Path:
+        """Write ``out/index.html`` (self-contained) and its PNG images; returns the page."""
+        from .report import build
+
+        return build(self, out, name=name, since=since, groups=groups, pair=pair)
 
 
 def default_store(store_option: str | None) -> Path:

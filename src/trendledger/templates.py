@@ -34,7 +34,7 @@ class Text(str):
     """A value to substitute as a string literal (plain ``str`` means an identifier)."""
 
 
-Value = str | float | int | Sequence[str]
+Value = str | float | int | Sequence[str] | None
 
 
 def sql_dir() -> Path:
@@ -141,7 +141,10 @@ def _fill(tree: exp.Expression, values: Mapping[str, Value]) -> exp.Expression:
         holder: exp.Expression = ident
         if isinstance(ident.parent, exp.Column) and ident.arg_key == "this":
             holder = ident.parent
-        if isinstance(value, Text):
+        if value is None:
+            # an optional value the fit leaves unset (written __name_or_null__, see views.plan)
+            holder.replace(exp.Null())
+        elif isinstance(value, Text):
             holder.replace(exp.Literal.string(str(value)))
         elif isinstance(value, str):
             ident.replace(exp.to_identifier(value, quoted=True))

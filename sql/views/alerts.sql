@@ -1,0 +1,114 @@
+-- What needs a look today: one row per group and reason (too_few_points, low_r2, outliers,
+-- slope_changed, crossing_soon), with a short detail and the group's latest x and date.
+
+-- Columns:
+--   group columns   as in the fit view
+--   reason          one of the words below
+--   severity        1 too_few_points, 2 low_r2, 3 outliers, 4 slope_changed, 5 crossing_soon
+--                   (the order `trendledger watch --fail-on` uses)
+--   detail          the numbers behind the reason, in words, e.g. 'r2 0.773 < 0.9'
+--   latest_x        the group's largest x (x_max of the fit view)
+--   latest_date     the group's latest value of the spec's first date or timestamp field, NULL
+--                   when the spec has none
+-- Reasons:
+--   too_few_points  the fit's status is too_few_points (fewer than 3 pairs)
+--   low_r2          the fit's r2 is below the fit's min_r2
+--   outliers        at least one row of the points view is flagged: the Bonferroni outlier test
+--                   on externally studentised residuals at the fit's alpha
+--   slope_changed   the change view's difference_p is below alpha: the latest window's slope
+--                   differs from the slope of all earlier data
+--   crossing_soon   only when the fit has a limit and a horizon: the fitted line reaches the
+--                   limit (cross_x, as in the crossing view, with the same conditions: a line
+--                   that meets the limit at or after the group's first x, whose slope is
+--                   significant at alpha or which fits exactly) at most horizon x-units after
+--                   latest_x, or has already reached it
+-- A group has no row when nothing is wrong. Group columns must not be named like a column of
+-- this view or a working column (n, r2, slope, slope_p, status, x_min, x_mean, y_mean,
+-- outliers, flagged_x, cross_x).
+CREATE OR REPLACE VIEW __view__ AS
+WITH groups AS MATERIALIZED (
+    SELECT
+        f.__group__,
+        f.n,
+        f.x_min,
+        f.x_max AS latest_x,
+        f.r2,
+        f.slope,
+        f.slope_p,
+        f.status,
+        m.x_mean,
+        m.y_mean
+    FROM __fit_view__ AS f
+    JOIN __moments_view__ AS m ON ROW(m.__group__) IS NOT DISTINCT FROM ROW(f.__group__)
+),
+dates AS MATERIALIZED (
+    SELECT __group__, max(__window_field_or_null__) AS latest_date
+    FROM __source__
+    GROUP BY __group__
+),
+flagged AS MATERIALIZED (
+    SELECT
+        __group__,
+        count(*) FILTER (WHERE outlier) AS outliers,
+        list_sort(list(x) FILTER (WHERE outlier)) AS flagged_x
+    FROM __points_view__
+    GROUP BY __group__
+),
+crossing AS (
+    SELECT
+        __group__,
+        x_min,
+        latest_x,
+        x_mean + (CAST(__limit_or_null__ AS DOUBLE) - y_mean) / slope AS cross_x
+    FROM groups
+    WHERE status IN ('ok', 'perfect_fit')
+        AND slope <> 0
+        AND (status = 'perfect_fit' OR slope_p < __alpha__)
+),
+reasons AS (
+    SELECT __group__, 'too_few_points' AS reason, 1 AS severity,
+        format('{} pair(s); a line needs 3', n) AS detail
+    FROM groups
+    WHERE status = 'too_few_points'
+    UNION ALL
+    SELECT __group__, 'low_r2', 2, format('r2 {:.3g} < {:g}', r2, __min_r2__)
+    FROM groups
+    WHERE r2 < __min_r2__
+    UNION ALL
+    SELECT __group__, 'outliers', 3,
+        format('{} reading(s) flagged (Bonferroni, alpha {:g}) at x = {}{}', outliers, __alpha__,
+            array_to_string(list_transform(list_slice(flagged_x, 1, 5),
+                lambda tl_x: format('{:g}', tl_x)), ', '),
+            CASE WHEN outliers > 5 THEN ', ...' ELSE '' END)
+    FROM flagged
+    WHERE outliers > 0
+    UNION ALL
+    SELECT __group__, 'slope_changed', 4,
+        format('slope {:.3g} in the window from {} against {:.3g} before: p {:.2g} < {:g}',
+            slope_recent, window_start, slope_before, difference_p, __alpha__)
+    FROM __change_view__
+    WHERE difference_p < __alpha__
+    UNION ALL
+    SELECT __group__, 'crossing_soon', 5,
+        CASE
+            WHEN cross_x <= latest_x
+                THEN format('line reached the limit {:g} at x = {:.4g}, before the latest x {:g}',
+                    CAST(__limit_or_null__ AS DOUBLE), cross_x, latest_x)
+            ELSE format('line reaches the limit {:g} at x = {:.4g}, {:.3g} after the latest x '
+                || '(horizon {:g})', CAST(__limit_or_null__ AS DOUBLE), cross_x,
+                cross_x - latest_x, CAST(__horizon_or_null__ AS DOUBLE))
+        END
+    FROM crossing
+    -- a line that met the limit before the first x moves away from it (crossing view)
+    WHERE cross_x >= x_min AND cross_x <= latest_x + CAST(__horizon_or_null__ AS DOUBLE)
+)
+SELECT
+    r.__group__,
+    r.reason,
+    CAST(r.severity AS INTEGER) AS severity,
+    r.detail,
+    g.latest_x,
+    d.latest_date
+FROM reasons AS r
+JOIN groups AS g ON ROW(g.__group__) IS NOT DISTINCT FROM ROW(r.__group__)
+LEFT JOIN dates AS d ON ROW(d.__group__) IS NOT DISTINCT FROM ROW(r.__group__)

@@ -1,0 +1,121 @@
+-- Where each group's fitted line reaches the fit's limit: the crossing x with a Fieller
+-- confidence interval by inverse regression, and the conservative one-sided 95% bound.
+
+-- One row per group of the fit view. Columns:
+--   group columns   as in the fit view
+--   cross_x         x where the fitted line reaches the limit: x_mean + (limit - y_mean) / slope
+--   cross_lo, cross_hi
+--                   confidence interval for that x at the fit's level (Fieller's method, below):
+--                   every x whose confidence band of the mean line contains the limit
+--   cross_bound     the conservative estimate of stability work (ICH Q1E shelf-life method): the
+--                   x at which the one-sided 95% confidence bound of the mean line meets the
+--                   limit, the lower bound when the slope falls toward a floor and the upper when
+--                   it rises toward a ceiling. It is the earlier end of the two-sided 90% Fieller
+--                   interval, so it comes before cross_x.
+--   note            NULL when all four are given; otherwise why not (the x columns that cannot
+--                   be given are NULL): 'no line: <fit status>' (too_few_points, constant_x,
+--                   out_of_range), 'flat line never reaches the limit', 'slope points away from
+--                   the limit' (the line meets the limit before the group's first x: it was
+--                   beyond the limit where the data begin and moves away from it; all NULL),
+--                   'slope not significant: p ... >= alpha ...' (the fit's
+--                   slope_p against its alpha; all NULL), 'interval unbounded at level ...'
+--                   (cross_lo, cross_hi NULL), 'bound unbounded' (cross_bound NULL).
+--
+-- Fieller's method. With u = x - x_mean, the line is y_mean + slope u, its standard error at u is
+-- s sqrt(1 / n + u^2 / sxx) (s = resid_sd), and the limit lies inside the band of critical value
+-- t where (slope u - c)^2 <= t^2 s^2 (1 / n + u^2 / sxx), c = limit - y_mean. The ends are the
+-- roots of that quadratic. With u0 = c / slope and g = (t slope_se / slope)^2,
+--     u = (u0 -/+ (t s / |slope|) sqrt(u0^2 / sxx + (1 - g) / n)) / (1 - g),
+-- a finite interval exactly when g < 1, that is when the slope differs from 0 at that level.
+-- cross_lo and cross_hi use t = tl_t_crit((1 - level) / 2, n - 2), cross_bound the smaller root
+-- with t = tl_t_crit(0.05, n - 2). A perfect fit (s = 0) gives cross_lo = cross_hi =
+-- cross_bound = cross_x. The numbers come from the moments and fit views of the same fit.
+CREATE OR REPLACE VIEW __view__ AS
+WITH groups AS MATERIALIZED (
+    SELECT
+        m.__group__,
+        m.n,
+        m.x_mean,
+        m.y_mean,
+        m.sxx,
+        f.x_min,
+        f.slope,
+        f.resid_sd AS s,
+        f.slope_se,
+        f.slope_p,
+        f.status
+    FROM __moments_view__ AS m
+    JOIN __fit_view__ AS f ON ROW(m.__group__) IS NOT DISTINCT FROM ROW(f.__group__)
+),
+quantiles AS MATERIALIZED (
+    SELECT
+        n,
+        tl_t_crit((1 - __level__) / 2, n - 2) AS t_level,
+        tl_t_crit(0.05, n - 2) AS t_bound
+    FROM (SELECT DISTINCT n FROM groups WHERE n >= 3) AS sizes
+),
+setup AS (
+    SELECT
+        g.*,
+        q.t_level,
+        q.t_bound,
+        CAST(__limit__ AS DOUBLE) - g.y_mean AS c,
+        (CAST(__limit__ AS DOUBLE) - g.y_mean) / g.slope AS u0,
+        (q.t_level * g.slope_se / g.slope) * (q.t_level * g.slope_se / g.slope) AS g_level,
+        (q.t_bound * g.slope_se / g.slope) * (q.t_bound * g.slope_se / g.slope) AS g_bound
+    FROM groups AS g
+    LEFT JOIN quantiles AS q USING (n)
+),
+judged AS (
+    SELECT
+        *,
+        CASE
+            WHEN status NOT IN ('ok', 'perfect_fit', 'constant_y') OR slope IS NULL
+                THEN 'no line: ' || status
+            WHEN slope = 0 THEN 'flat line never reaches the limit'
+            WHEN x_mean + u0 < x_min THEN 'slope points away from the limit'
+            WHEN status = 'ok' AND NOT slope_p < __alpha__
+                THEN format('slope not significant: p {:.3g} >= alpha {:g}', slope_p, __alpha__)
+        END AS no_line
+    FROM setup
+),
+roots AS (
+    SELECT
+        *,
+        CASE WHEN no_line IS NULL THEN x_mean + u0 END AS x_cross,
+        CASE
+            WHEN no_line IS NULL AND g_level < 1 THEN (t_level * s / abs(slope))
+                * sqrt(u0 * u0 / sxx + (1 - g_level) / n)
+        END AS w_level,
+        CASE
+            WHEN no_line IS NULL AND g_bound < 1 THEN (t_bound * s / abs(slope))
+                * sqrt(u0 * u0 / sxx + (1 - g_bound) / n)
+        END AS w_bound
+    FROM judged
+),
+ends AS (
+    SELECT
+        *,
+        x_mean + (u0 - w_level) / (1 - g_level) AS x_lo,
+        x_mean + (u0 + w_level) / (1 - g_level) AS x_hi,
+        x_mean + (u0 - w_bound) / (1 - g_bound) AS x_bound
+    FROM roots
+)
+SELECT
+    __group__,
+    CASE WHEN isfinite(x_cross) THEN x_cross END AS cross_x,
+    CASE WHEN isfinite(x_lo) AND isfinite(x_hi) THEN x_lo END AS cross_lo,
+    CASE WHEN isfinite(x_lo) AND isfinite(x_hi) THEN x_hi END AS cross_hi,
+    CASE WHEN isfinite(x_bound) THEN x_bound END AS cross_bound,
+    CASE
+        WHEN no_line IS NOT NULL THEN no_line
+        WHEN NOT isfinite(x_cross) THEN 'no line: out_of_range'
+        ELSE nullif(concat_ws('; ',
+            CASE
+                WHEN NOT coalesce(isfinite(x_lo) AND isfinite(x_hi), false)
+                    THEN format('interval unbounded at level {:g}', __level__)
+            END,
+            CASE WHEN NOT coalesce(isfinite(x_bound), false) THEN 'bound unbounded' END
+        ), '')
+    END AS note
+FROM ends
