@@ -39,6 +39,8 @@ DIGITS = 50  # decimal digits for the exact references' square roots
 # Relative tolerance of p-values and confidence limits, which carry the Student t macros of
 # sql/macros/t_dist.sql (stated there as good to about 13 significant digits).
 T_RTOL = 1e-9
+# The template of the sums a fit view reads: the two-pass moments over every row.
+MOMENTS = "moments_full"
 
 
 # --- a store to test in -------------------------------------------------------------------
@@ -64,7 +66,12 @@ def create_view(
     level: float = 0.95,
 ) -> str:
     values = {"view": view, "source": "measurements", "group": list(group), "x": "x", "y": "y",
-              "level": level}
+              "level": level, "moments_view": f"{view}_moments"}
+    # the fit reads the sums of a moments view (moments_full.sql, or its _origin twin)
+    sums = file.replace("fit", MOMENTS, 1)
+    for statement in templates.load(f"views/{sums}.sql").render(
+            {**values, "view": f"{view}_moments"}):
+        con.execute(statement)
     for statement in templates.load(f"views/{file}.sql").render(values):
         con.execute(statement)
     return view

@@ -4,7 +4,8 @@
 -- A pair (x, y) counts when both values are present and finite (NULL, NaN and infinity are
 -- skipped); a group whose pairs are all skipped still gets a row, with n = 0. A NULL group key
 -- is a group like any other. Group columns must not be named like a column of this view or a
--- working column (px, py, gid, x0, y0, y_min, y_max, b1).
+-- working column (gid, b_ls, rss_all, rss_ls, ss_line, stage, t_crit) or a column of the
+-- moments view.
 --
 -- status, first matching rule wins:
 --   too_few_points  n < 3. With n = 2 and two different x the line through the two points is
@@ -22,62 +23,33 @@
 --                   r2 = r2_adj = 1, intervals have zero width, slope_t and slope_p are NULL.
 --   ok              every statistic is defined.
 --
--- Numerics. Pass 1 (one GROUP BY) gives per group the count, the ranges, anchors x0 = avg(x) and
--- y0 = avg(y) (they need not be exact) and a first slope b1 = regr_slope(y, x) (8 digits or more
--- even far from zero). Pass 2 joins every pair back to its group and adds up, in compensated
--- (Kahan) sums, dx = x - x0, dy = y - y0, dx^2, dx dy and the squared residuals e^2 with
--- e = dy - b1 dx; for data far from zero x - x0 and y - y0 are exact differences. The centred
--- sums are the corrected two-pass sums (Chan, Golub and LeVeque), sxx = sum(dx^2) - sum(dx)^2 / n
--- and sxy = sum(dx dy) - sum(dx) sum(dy) / n, so the anchors' rounding costs nothing, and
--- slope = sxy / sxx. The residual sum of squares comes from the residuals:
--- rss = sum(e^2) - sum(e)^2 / n - (slope - b1)^2 sxx, exact algebra for any b1 and only a small
--- correction as b1 is close. The centred total syy is taken as slope sxy + rss (explained plus
--- residual: no cancellation), so r2 = 1 - rss / syy and r2_adj = 1 - rss / syy (n - 1) / (n - 2)
--- keep their digits for weak and strong fits alike. The t quantile and tail probability come from
--- the tl_t_crit and tl_t_two_sided macros (sql/macros/t_dist.sql), with n - 2 degrees of freedom.
+-- Numerics. The sums come from the moments view of the same fit (moments.sql: count, means,
+-- ranges, the centred sums sxx and sxy and the residual sum of squares rss of the least-squares
+-- line, each kept accurate however strong or weak the fit, and a bound rss_noise on the rounding
+-- error of rss). slope = sxy / sxx and intercept = y_mean - slope x_mean. The centred total is
+-- taken as slope sxy + rss (explained plus residual: no cancellation), so r2 = 1 - rss / syy and
+-- r2_adj = 1 - rss / syy (n - 1) / (n - 2) keep their digits for weak and strong fits alike. The
+-- t quantile and tail probability come from the tl_t_crit and tl_t_two_sided macros
+-- (sql/macros/t_dist.sql), with n - 2 degrees of freedom.
 CREATE OR REPLACE VIEW __view__ AS
-WITH pairs AS NOT MATERIALIZED (
-    SELECT
-        __group__,
-        CASE WHEN isfinite(CAST(__x__ AS DOUBLE)) AND isfinite(CAST(__y__ AS DOUBLE))
-            THEN CAST(__x__ AS DOUBLE) END AS px,
-        CASE WHEN isfinite(CAST(__x__ AS DOUBLE)) AND isfinite(CAST(__y__ AS DOUBLE))
-            THEN CAST(__y__ AS DOUBLE) END AS py
-    FROM __source__
-),
-pass1 AS MATERIALIZED (
+WITH sums AS MATERIALIZED (
     SELECT
         __group__,
         row_number() OVER () AS gid,
-        CAST(count(px) AS BIGINT) AS n,
-        min(px) AS x_min,
-        max(px) AS x_max,
-        min(py) AS y_min,
-        max(py) AS y_max,
-        avg(px) AS x0,
-        avg(py) AS y0,
-        -- regr_slope is NaN for one point or constant x; any finite first slope will do.
-        coalesce(CASE WHEN isfinite(regr_slope(py, px)) THEN regr_slope(py, px) END, 0.0) AS b1
-    FROM pairs
-    GROUP BY __group__
+        n,
+        x_min,
+        x_max,
+        y_min,
+        y_max,
+        x_mean,
+        y_mean,
+        sxx,
+        sxy,
+        rss AS rss_all,
+        rss_noise
+    FROM __moments_view__
 ),
-pass2 AS (
-    SELECT
-        gid,
-        fsum(dx) AS sum_dx,
-        fsum(dy) AS sum_dy,
-        fsum(dx * dx) AS sum_dxx,
-        fsum(dx * dy) AS sum_dxy,
-        fsum((dy - b1 * dx) * (dy - b1 * dx)) AS sum_ee
-    FROM (
-        SELECT g.gid, g.b1, p.px - g.x0 AS dx, p.py - g.y0 AS dy
-        FROM pairs AS p
-        JOIN pass1 AS g ON ROW(p.__group__) IS NOT DISTINCT FROM ROW(g.__group__)
-        WHERE p.px IS NOT NULL
-    ) AS anchored
-    GROUP BY gid
-),
-centred AS (
+line AS (
     SELECT
         gid,
         n,
@@ -85,45 +57,27 @@ centred AS (
         x_max,
         y_min,
         y_max,
-        x0 + sum_dx / n AS x_mean,
-        y0 + sum_dy / n AS y_mean,
-        sum_dxx - sum_dx * sum_dx / n AS sxx,
-        sum_dxy - sum_dx * sum_dy / n AS sxy,
-        -- sum(e) is sum(dy) - b1 sum(dx); it only enters as a small correction
-        sum_ee - (sum_dy - b1 * sum_dx) * (sum_dy - b1 * sum_dx) / n AS rss_b1,
-        sum_ee,
-        sum_dy,
-        b1
-    FROM pass1
-    LEFT JOIN pass2 USING (gid)
-),
-line AS (
-    SELECT
-        *,
-        CASE WHEN n >= 2 AND x_min < x_max THEN sxy / sxx END AS b_ls
-    FROM centred
-),
-residuals AS (
-    SELECT
-        *,
-        CASE WHEN n >= 3 THEN greatest(rss_b1 - (b_ls - b1) * (b_ls - b1) * sxx, 0.0) END AS rss_ls
-    FROM line
+        x_mean,
+        y_mean,
+        sxx,
+        sxy,
+        rss_noise,
+        CASE WHEN n >= 2 AND x_min < x_max THEN sxy / sxx END AS b_ls,
+        CASE WHEN n >= 3 THEN rss_all END AS rss_ls
+    FROM sums
 ),
 spread AS (
     SELECT
         *,
         -- explained and total sum of squares, syy = ss_line + rss: no cancellation
         b_ls * sxy AS ss_line,
-        b_ls * sxy + rss_ls AS syy,
-        -- rounding error bound of rss: 64 units of float64 rounding times
-        -- sqrt(sum(e^2) sum(dy^2)), from the error of each residual e = dy - b1 dx
-        pow(2.0, -46) * sqrt(sum_ee * (b_ls * sxy + rss_ls + sum_dy * sum_dy / n)) AS rss_noise
-    FROM residuals
+        b_ls * sxy + rss_ls AS syy
+    FROM line
 ),
 quantiles AS MATERIALIZED (
     -- one t quantile per group size, not per group: the macro is costly to plan and to run
     SELECT n, tl_t_crit((1 - __level__) / 2, n - 2) AS t_crit
-    FROM (SELECT DISTINCT n FROM pass1 WHERE n >= 3) AS sizes
+    FROM (SELECT DISTINCT n FROM sums WHERE n >= 3) AS sizes
 ),
 classified AS (
     SELECT
@@ -220,7 +174,7 @@ SELECT
     f.intercept_lo,
     f.intercept_hi,
     v.status
-FROM pass1 AS g
+FROM sums AS g
 JOIN verdict AS v ON v.gid = g.gid
 -- a row out of range keeps its status and count but no statistics
 LEFT JOIN intervals AS f ON f.gid = g.gid AND v.status <> 'out_of_range'

@@ -10,7 +10,8 @@
 -- A pair (x, y) counts when both values are present and finite (NULL, NaN and infinity are
 -- skipped); a group whose pairs are all skipped still gets a row, with n = 0. A NULL group key
 -- is a group like any other. Group columns must not be named like a column of this view or a
--- working column (px, py, gid, y_min, y_max, b1).
+-- working column (gid, sum_xx, sum_xy, b_ls, rss_all, rss_ls, ss_line, sum_yy,
+-- stage, t_crit) or a column of the moments view.
 --
 -- status, first matching rule wins:
 --   too_few_points  n < 2. With one point at x <> 0 the line through it and the origin is given
@@ -27,57 +28,29 @@
 --                   slope_p are NULL.
 --   ok              every statistic is defined.
 --
--- Numerics. Pass 1 (one GROUP BY) gives per group the count, the ranges and a first slope
--- b1 = sum(xy) / sum(x^2). Pass 2 joins every pair back to its group and adds up, in compensated
--- (Kahan) sums, x^2, x e and e^2 for the residuals e = y - b1 x. One step of iterative refinement
--- gives the slope, slope = b1 + sum(x e) / sum(x^2), which recovers the digits a cancelling
--- sum(xy) loses; the residual sum of squares comes from the residuals,
--- rss = sum(e^2) - (slope - b1)^2 sum(x^2), exact algebra for any b1. The uncentred total is
--- taken as slope^2 sum(x^2) + rss (explained plus residual: no cancellation). The t quantile and
--- tail probability come from the tl_t_crit and tl_t_two_sided macros (sql/macros/t_dist.sql),
--- with n - 1 degrees of freedom.
+-- Numerics. The sums come from the moments view of the same fit (moments_origin.sql: count,
+-- ranges, sxx = sum(x^2), sxy = sum(xy) and the residual sum of squares rss of the line through
+-- the origin, each kept accurate however strong or weak the fit, and a bound rss_noise on the
+-- rounding error of rss). slope = sxy / sxx. The uncentred total is taken as slope^2 sxx + rss
+-- (explained plus residual: no cancellation). The t quantile and tail probability come from the
+-- tl_t_crit and tl_t_two_sided macros (sql/macros/t_dist.sql), with n - 1 degrees of freedom.
 CREATE OR REPLACE VIEW __view__ AS
-WITH pairs AS NOT MATERIALIZED (
-    SELECT
-        __group__,
-        CASE WHEN isfinite(CAST(__x__ AS DOUBLE)) AND isfinite(CAST(__y__ AS DOUBLE))
-            THEN CAST(__x__ AS DOUBLE) END AS px,
-        CASE WHEN isfinite(CAST(__x__ AS DOUBLE)) AND isfinite(CAST(__y__ AS DOUBLE))
-            THEN CAST(__y__ AS DOUBLE) END AS py
-    FROM __source__
-),
-pass1 AS MATERIALIZED (
+WITH sums AS MATERIALIZED (
     SELECT
         __group__,
         row_number() OVER () AS gid,
-        CAST(count(px) AS BIGINT) AS n,
-        min(px) AS x_min,
-        max(px) AS x_max,
-        min(py) AS y_min,
-        max(py) AS y_max,
-        -- NaN when every x is 0, and it may overflow; any finite first slope will do.
-        coalesce(
-            CASE WHEN isfinite(sum(px * py) / sum(px * px)) THEN sum(px * py) / sum(px * px) END,
-            0.0
-        ) AS b1
-    FROM pairs
-    GROUP BY __group__
+        n,
+        x_min,
+        x_max,
+        y_min,
+        y_max,
+        sxx AS sum_xx,
+        sxy AS sum_xy,
+        rss AS rss_all,
+        rss_noise
+    FROM __moments_view__
 ),
-pass2 AS (
-    SELECT
-        gid,
-        fsum(px * px) AS sum_xx,
-        fsum(px * e) AS sum_xe,
-        fsum(e * e) AS sum_ee
-    FROM (
-        SELECT g.gid, p.px, p.py - g.b1 * p.px AS e
-        FROM pairs AS p
-        JOIN pass1 AS g ON ROW(p.__group__) IS NOT DISTINCT FROM ROW(g.__group__)
-        WHERE p.px IS NOT NULL
-    ) AS residuals
-    GROUP BY gid
-),
-refined AS (
+residuals AS (
     SELECT
         gid,
         n,
@@ -85,35 +58,24 @@ refined AS (
         x_max,
         y_min,
         y_max,
-        b1,
         sum_xx,
-        sum_ee,
-        CASE WHEN sum_xx > 0 THEN b1 + sum_xe / sum_xx END AS b_ls
-    FROM pass1
-    LEFT JOIN pass2 USING (gid)
-),
-residuals AS (
-    SELECT
-        *,
-        CASE WHEN n >= 2 THEN greatest(sum_ee - (b_ls - b1) * (b_ls - b1) * sum_xx, 0.0) END
-            AS rss_ls
-    FROM refined
+        rss_noise,
+        CASE WHEN sum_xx > 0 THEN sum_xy / sum_xx END AS b_ls,
+        CASE WHEN n >= 2 THEN rss_all END AS rss_ls
+    FROM sums
 ),
 spread AS (
     SELECT
         *,
         -- explained and total sum of squares, sum(y^2) = ss_line + rss: no cancellation
         b_ls * b_ls * sum_xx AS ss_line,
-        b_ls * b_ls * sum_xx + rss_ls AS sum_yy,
-        -- rounding error bound of rss: 64 units of float64 rounding times
-        -- sqrt(sum(e^2) sum(y^2)), from the error of each residual e = y - b1 x
-        pow(2.0, -46) * sqrt(sum_ee * (b_ls * b_ls * sum_xx + rss_ls)) AS rss_noise
+        b_ls * b_ls * sum_xx + rss_ls AS sum_yy
     FROM residuals
 ),
 quantiles AS MATERIALIZED (
     -- one t quantile per group size, not per group: the macro is costly to plan and to run
     SELECT n, tl_t_crit((1 - __level__) / 2, n - 1) AS t_crit
-    FROM (SELECT DISTINCT n FROM pass1 WHERE n >= 2) AS sizes
+    FROM (SELECT DISTINCT n FROM sums WHERE n >= 2) AS sizes
 ),
 classified AS (
     SELECT
@@ -204,7 +166,7 @@ SELECT
     CAST(NULL AS DOUBLE) AS intercept_lo,
     CAST(NULL AS DOUBLE) AS intercept_hi,
     v.status
-FROM pass1 AS g
+FROM sums AS g
 JOIN verdict AS v ON v.gid = g.gid
 -- a row out of range keeps its status and count but no statistics
 LEFT JOIN intervals AS f ON f.gid = g.gid AND v.status <> 'out_of_range'

@@ -24,13 +24,28 @@ KINDS: tuple[tuple[str, str, tuple[str, ...]], ...] = (
     # (kind, view name suffix, candidate template files under sql/views/): the first
     # candidate that exists and whose placeholders the fit can all fill is used.
     ("moments", "_moments", ("moments",)),
-    ("fit", "", ("fit",)),
+    ("fit", "", ("fit_stored",)),  # moments.py: fit.sql's rows, stored and kept up to date
     ("windows", "_windows", ("windows", "windows_x")),
     ("points", "_points", ("points",)),
     ("change", "_change", ("change",)),
+    ("break", "_break", ("break",)),
     ("crossing", "_crossing", ("crossing",)),
-    ("alerts", "_alerts", ("alerts",)),
+    ("alerts", "_alerts", ("alerts", "alerts_plain")),
+    # moments.py: the same fit recomputed from every row in two passes (reference, benchmarks)
+    ("full_moments", "_full_moments", ("moments_full",)),
+    ("full", "_full", ("fit",)),
 )
+
+#: moments.py: placeholder values a kind takes from another (the full fit renders fit.sql over
+#: the full moments view instead of the stored moments).
+KIND_VALUES: dict[str, dict[str, str]] = {"full": {"moments_view": "full_moments_view"}}
+
+#: Kinds whose template creates a table macro (called with arguments) instead of a view.
+TABLE_MACROS = frozenset({"break"})
+
+#: Kinds whose statistics assume a line with an intercept: a fit through the origin gets them
+#: only from an ``_origin`` twin of the template (none is written yet), never from the plain one.
+INTERCEPT_ONLY = frozenset({"windows", "points", "change", "break", "crossing", "alerts"})
 
 
 @dataclass(frozen=True)
@@ -69,6 +84,8 @@ def fit_values(spec: Spec, fit: Fit) -> dict[str, Any]:
     }
     for kind, suffix, _ in KINDS:
         values[f"{kind}_view"] = fit.view + suffix
+    values["moments_table"] = f"tl_moments_{fit.name}"  # moments.py: the stored sums
+    values["fit_table"] = f"tl_fit_{fit.name}"  # moments.py: the stored statistics
     return values
 
 
@@ -85,7 +102,8 @@ def _pick(fit: Fit, files: tuple[str, ...], values: dict[str, Any]) -> templates
         if not (templates.sql_dir() / relative).is_file():
             continue
         tpl = templates.load(relative)
-        if all(values.get(p) is not None for p in tpl.placeholders if p != "view"):
+        if all(values.get(p) is not None for p in tpl.placeholders
+               if p != "view" and not p.endswith("_or_null")):
             return tpl
     return None
 
@@ -98,25 +116,44 @@ def plan(spec: Spec) -> list[Planned]:
                            tuple(macro.render({}))))
     for fit in spec.fits:
         values = fit_values(spec, fit)
+        # __name_or_null__ in a template reads SQL NULL where the fit leaves name unset
+        # (instead of skipping the template)
+        values.update({f"{k}_or_null": v for k, v in list(values.items())
+                       if not k.endswith("_view") and not isinstance(v, list)})
+        installed: set[str] = set()
         for kind, suffix, files in KINDS:
-            tpl = _pick(fit, files, values)
+            # a template can read only the sibling views already installed for this fit
+            offered = {k: None if k.endswith("_view") and k not in installed else v
+                       for k, v in values.items()}
+            # moments.py: a kind may take a placeholder's value from another one
+            offered.update({k: offered[v] for k, v in KIND_VALUES.get(kind, {}).items()})
+            tpl = _pick(fit, files, offered)
             if tpl is None:
                 continue
+            if fit.through_origin and kind in INTERCEPT_ONLY and not tpl.name.endswith("_origin"):
+                continue
+            installed.add(f"{kind}_view")
             name = fit.view + suffix
-            stmts = tuple(tpl.render({**values, "view": name}))
+            stmts = tuple(tpl.render({**offered, "view": name}))
             out.append(Planned(name, kind, fit.name, tpl.description, stmts))
     return out
 
 
 def install(con: duckdb.DuckDBPyConnection, spec: Spec) -> int:
     """Create or refresh macros and views inside the caller's transaction; returns how many."""
+    from . import moments  # moments.py: the stored sums and statistics
+
     have = {
         name: digest for name, digest in con.execute("SELECT name, sql_hash FROM tl_views")
         .fetchall()
     }
     wanted = plan(spec)
     changed = 0
+    synced = False
     for item in wanted:
+        if item.kind != "macro" and not synced:  # moments.py: after the t macros, before views
+            moments.sync(con, spec)
+            synced = True
         if have.get(item.name) == item.digest:
             continue
         for stmt in item.statements:
@@ -124,18 +161,23 @@ def install(con: duckdb.DuckDBPyConnection, spec: Spec) -> int:
         if item.kind != "macro":
             comment = exp.Literal.string(item.description).sql("duckdb")
             ident = exp.to_identifier(item.name, quoted=True).sql("duckdb")
-            con.execute(f"COMMENT ON VIEW {ident} IS {comment}")
+            what = "MACRO TABLE" if item.kind in TABLE_MACROS else "VIEW"
+            con.execute(f"COMMENT ON {what} {ident} IS {comment}")
         con.execute("DELETE FROM tl_views WHERE name = ?", [item.name])
         con.execute(
             "INSERT INTO tl_views VALUES (?, ?, ?, ?, ?)",
             [item.name, item.kind, item.fit, item.description, item.digest],
         )
         changed += 1
+    if not synced:  # moments.py: no fit left, drop the tables of removed fits
+        moments.sync(con, spec)
     names = {item.name for item in wanted}
     for name, kind in con.execute("SELECT name, kind FROM tl_views").fetchall():
         if name not in names:
             ident = exp.to_identifier(name, quoted=True).sql("duckdb")
-            con.execute(f"DROP {'MACRO' if kind == 'macro' else 'VIEW'} IF EXISTS {ident}")
+            what = ("MACRO" if kind == "macro" else "MACRO TABLE" if kind in TABLE_MACROS
+                    else "VIEW")
+            con.execute(f"DROP {what} IF EXISTS {ident}")
             con.execute("DELETE FROM tl_views WHERE name = ?", [name])
             changed += 1
     return changed
