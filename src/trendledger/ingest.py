@@ -17,6 +17,7 @@ import hashlib
 import io
 import json
 import os
+import re
 import tempfile
 import zlib
 from collections.abc import Callable
@@ -28,14 +29,15 @@ import duckdb
 import pandas as pd
 from sqlglot import exp
 
-from . import __version__
-from .errors import InputError
+from . import __version__, moments
+from .errors import InputError, StoreError
 from .paths import PathTemplate, expand, relative_to_root
-from .spec import FLOATS, Spec
+from .spec import FLOATS, NUMERIC, Spec
 from .store import first_row, utcnow
 
 Progress = Callable[[str, int, int], None]
 GLOBBY = set("*?[]{}\\")
+INTEGERS = NUMERIC - FLOATS
 
 
 @dataclass
@@ -91,6 +93,14 @@ def _mtime(stat: os.stat_result) -> dt.datetime:
     return dt.datetime.fromtimestamp(stat.st_mtime, dt.UTC).replace(tzinfo=None)
 
 
+def _utf8_name(path: Path) -> bool:
+    try:
+        str(path).encode("utf-8")
+    except UnicodeEncodeError:  # undecodable bytes come back from the OS as surrogates
+        return False
+    return True
+
+
 def _current(con: duckdb.DuckDBPyConnection) -> dict[str, tuple[int, str, int, Any, str]]:
     """Latest live or retracted lineage row per path: what a new file is compared with."""
     rows = con.execute(
@@ -118,14 +128,20 @@ def _check_header(spec: Spec, data: bytes, path: str) -> None:
     head = _text_head(data, spec.source.compression == "gzip", path)
     if head.startswith(codecs.BOM_UTF8):
         head = head[len(codecs.BOM_UTF8):]
-    end = head.find(b"\n")
-    first = head if end < 0 else head[:end]
+    # The header ends at the first line break of any kind (\n, \r\n or an old-style \r).
+    first = head.split(b"\n", 1)[0].split(b"\r", 1)[0]
     try:
-        line = first.decode("utf-8").rstrip("\r")
+        line = first.decode("utf-8")
     except UnicodeDecodeError as err:
         raise InputError("the header is not UTF-8 text", file=path, line=1) from err
     delim = spec.source.delimiter or ("\t" if spec.source.format == "tsv" else ",")
-    names = next(csv.reader([line], delimiter=delim), [])
+    # Strict: DuckDB skips a header with text after a closing quote ('"cycle"x,...') by
+    # returning no rows at all, without an error. Spaces there are fine for both.
+    line = re.sub(f'" +(?={re.escape(delim)}|$)', '"', line)
+    try:
+        names = next(csv.reader([line], delimiter=delim, strict=True), [])
+    except csv.Error as err:
+        raise InputError(f"the header cannot be read ({err})", file=path, line=1) from err
     names = [n.strip() for n in names]
     want = list(spec.source.columns)
     if names != want:
@@ -147,7 +163,7 @@ def _check_header(spec: Spec, data: bytes, path: str) -> None:
         )
 
 
-def _check_utf8(spec: Spec, data: bytes, path: str) -> None:
+def _check_utf8(spec: Spec, data: bytes, path: str) -> str:
     """DuckDB replaces undecodable bytes before casting; we name the line instead."""
     raw = data
     if spec.source.compression == "gzip":
@@ -156,13 +172,32 @@ def _check_utf8(spec: Spec, data: bytes, path: str) -> None:
         except (OSError, EOFError, zlib.error) as err:
             raise InputError(f"not a valid gzip file ({err})", file=path) from err
     try:
-        raw.decode("utf-8")
+        return raw.decode("utf-8")
     except UnicodeDecodeError as err:
         line = raw.count(b"\n", 0, err.start) + 1
         raise InputError(
             f"bytes that are not UTF-8 text (byte 0x{raw[err.start]:02x}); "
             "save the file as UTF-8", file=path, line=line,
         ) from err
+
+
+def _check_quotes(spec: Spec, text: str, path: str) -> None:
+    """Refuse a file that ends inside a quoted field.
+
+    DuckDB 2.0 reports such a quote when it reads up to four files at once, but when
+    a batch has five or more it drops the open record (and every line after the
+    quote) without a word, so the check cannot be left to it. A quote opens a field
+    when it comes first in the field, after optional spaces; inside, "" is a quote.
+    """
+    if '"' not in text:
+        return
+    delim = spec.source.delimiter or ("\t" if spec.source.format == "tsv" else ",")
+    start = "|".join(re.escape(c) for c in (delim, "\r", "\n"))
+    quoted = re.compile(f'(?:^|(?<={start}))[ ]*"[^"]*(?:""[^"]*)*("?)')
+    for found in quoted.finditer(text.removeprefix("\ufeff")):
+        if not found.group(1):
+            line = text.count("\n", 0, found.start()) + 1 if "\n" in text else None
+            raise InputError("a quote opened here is never closed", file=path, line=line)
 
 
 def _check_jsonl(spec: Spec, data: bytes, path: str) -> None:
@@ -198,8 +233,9 @@ def _inspect(spec: Spec, cand: _Candidate) -> None:
     fmt = spec.source.format
     assert cand.data is not None
     if fmt in ("csv", "tsv"):
-        _check_utf8(spec, cand.data, cand.relative)
+        text = _check_utf8(spec, cand.data, cand.relative)
         _check_header(spec, cand.data, cand.relative)
+        _check_quotes(spec, text, cand.relative)
     elif fmt == "jsonl":
         _check_jsonl(spec, cand.data, cand.relative)
     elif fmt == "parquet" and not cand.data.startswith(b"PAR1"):
@@ -240,8 +276,12 @@ def _read_call(spec: Spec, *, rejects: bool = False) -> str:
     src = spec.source
     comp = f", compression='{src.compression}'"
     if src.format in ("csv", "tsv"):
+        # Integer columns come in as text and are cast by _whole_number, which refuses
+        # '2.5' where DuckDB would round it; the rejects read keeps the declared types
+        # so that DuckDB names the line of a value that is no number at all.
         cols = exp.Struct(expressions=[
-            exp.PropertyEQ(this=exp.Literal.string(n), expression=exp.Literal.string(t))
+            exp.PropertyEQ(this=exp.Literal.string(n), expression=exp.Literal.string(
+                "VARCHAR" if t in INTEGERS and not rejects else t))
             for n, t in src.columns.items()
         ]).sql("duckdb")
         delim = src.delimiter or ("\t" if src.format == "tsv" else ",")
@@ -262,13 +302,38 @@ def _read_call(spec: Spec, *, rejects: bool = False) -> str:
     return "read_parquet($links, filename=true)"
 
 
+def _whole_number(col: exp.Expression, name: str, typ: str) -> exp.Expression:
+    """Cast to an integer type, stopping at a value the cast would round.
+
+    DuckDB turns '2.5' into 3 when it reads or casts into an integer column. The
+    store must not change a value silently, so such a value fails the read like
+    any other bad value; '12.0' and '1e3' are whole numbers and load as 12 and 1000.
+    """
+    as_int = exp.cast(col.copy(), exp.DataType.build(typ, dialect="duckdb"))
+    lossy = exp.NEQ(
+        this=exp.TryCast(this=col.copy(), to=exp.DataType.build("DOUBLE")),
+        expression=exp.cast(as_int.copy(), exp.DataType.build("DOUBLE")),
+    )
+    message = exp.DPipe(
+        this=exp.DPipe(this=exp.Literal.string(f"column {name}: "),
+                       expression=exp.cast(col.copy(), exp.DataType.build("VARCHAR"))),
+        expression=exp.Literal.string(f" is not a whole number; as {typ} it would be rounded"),
+    )
+    return exp.Case(ifs=[exp.If(this=lossy, true=exp.Anonymous(this="error",
+                                                               expressions=[message]))],
+                    default=as_int)
+
+
 def _select_sql(spec: Spec, *, join: bool = True, rejects: bool = False) -> str:
     """SELECT the declared columns (and, joined to the batch's files, fields and file_id)."""
     src = spec.source
     select: list[exp.Expression] = []
     for name, typ in src.columns.items():
         col = exp.column(name, table="r", quoted=True)
-        if src.format == "parquet":
+        if typ in INTEGERS and (src.format == "parquet"
+                                or (src.format in ("csv", "tsv") and not rejects)):
+            select.append(_whole_number(col, name, typ))
+        elif src.format == "parquet":
             select.append(exp.cast(col, exp.DataType.build(typ, dialect="duckdb")))
         else:
             select.append(col)
@@ -356,6 +421,46 @@ def _nonfinite_problems(con: duckdb.DuckDBPyConnection, spec: Spec,
                     "holds NaN or an infinite value; leave the cell empty for a missing value",
                     file=cand.relative, column=name,
                 )
+
+
+#: Words of DuckDB I/O errors that blame the machine (disk, folder, memory), not a data file.
+_MACHINE_WORDS = ("No space left", "Disk quota", "Read-only file system", "Could not write",
+                  "Could not truncate", "Could not fsync", "Input/output error")
+
+
+def _machine_trouble(err: duckdb.Error) -> bool:
+    if isinstance(err, duckdb.OutOfMemoryException | duckdb.FatalException):
+        return True
+    return isinstance(err, duckdb.IOException) and any(w in str(err) for w in _MACHINE_WORDS)
+
+
+def database_path(con: duckdb.DuckDBPyConnection) -> str | None:
+    """The file behind a connection, for error messages (asked before anything can fail)."""
+    try:
+        row = first_row(
+            con, "SELECT path FROM duckdb_databases() WHERE database_name = current_database()"
+        )
+    except duckdb.Error:
+        return None
+    return str(row[0]) if row and row[0] else None
+
+
+def cannot_write(err: duckdb.Error, where: str | None) -> StoreError:
+    """One clear line for a write the machine refused: the transaction was undone."""
+    text = str(err).strip()
+    first = text.splitlines()[0] if text else type(err).__name__
+    return StoreError(
+        f"could not write the store, nothing was changed: {first}", file=where,
+        hint="free some disk space or make the folder writable, then run the command again",
+    )
+
+
+def rollback_quietly(con: duckdb.DuckDBPyConnection) -> None:
+    """Undo the open transaction, if DuckDB has not already undone it after a failed COMMIT."""
+    try:
+        con.execute("ROLLBACK")
+    except duckdb.Error:
+        pass
 
 
 class _ReadFailed(Exception):
@@ -467,6 +572,14 @@ def append(
         if progress:
             progress("hash", i, total)
         rel = relative_to_root(path, root)
+        if not _utf8_name(path):
+            # Such a name cannot be stored, printed or handed to DuckDB as text.
+            shown = os.fsencode(rel or str(path)).decode("utf-8", "backslashreplace")
+            c = _Candidate(path=path, relative=shown, fields={})
+            c.problem = InputError("the file name is not UTF-8 text; rename the file",
+                                   file=shown)
+            cands.append(c)
+            continue
         if rel is None:
             c = _Candidate(path=path, relative=str(path), fields={})
             c.problem = InputError("is outside the spec's folder " + str(root), file=str(path))
@@ -561,6 +674,7 @@ def _write(
             outcomes=[FileOutcome(c.relative, "unchanged") for c in unchanged],
         )
 
+    where = database_path(con)
     with tempfile.TemporaryDirectory(prefix="trendledger-") as tmp:
         while True:
             con.execute("BEGIN TRANSACTION")
@@ -568,16 +682,27 @@ def _write(
                 summary = _transaction(con, spec, cands, to_load, skipped, unchanged, Path(tmp),
                                        started=started, skip_bad=skip_bad, command=command,
                                        progress=progress)
-                con.execute("COMMIT")
-                return summary
             except _ReadFailed as failed:
-                con.execute("ROLLBACK")
+                rollback_quietly(con)
                 _locate_failures(con, spec, failed)
                 if not skip_bad and (err := _first_problem(cands)) is not None:
                     raise err from None
+                continue
+            except duckdb.Error as err:
+                rollback_quietly(con)
+                if not _machine_trouble(err):
+                    raise
+                raise cannot_write(err, where) from err
             except BaseException:
-                con.execute("ROLLBACK")
+                rollback_quietly(con)
                 raise
+            try:
+                con.execute("COMMIT")
+            except duckdb.Error as err:
+                # DuckDB has already undone the transaction; the store is as it was.
+                rollback_quietly(con)
+                raise cannot_write(err, where) from err
+            return summary
 
 
 def _transaction(
@@ -625,6 +750,8 @@ def _transaction(
             try:
                 con.execute(_insert_sql(spec), {"links": [c.link for c in good]})
             except duckdb.Error as err:
+                if _machine_trouble(err):
+                    raise  # a full disk or a read-only folder, not a bad file
                 raise _ReadFailed(good, err) from err
             _nonfinite_problems(con, spec, {c.file_id: c for c in good})
         if progress:
@@ -653,9 +780,13 @@ def _transaction(
             "message = ? WHERE file_id = ?",
             [now, f"replaced by file {c.file_id} in batch {bid}", c.replaces],
         )
+    # moments.py: the fits' stored sums follow the final rows of the batch
+    moments.update(con, spec, [c.file_id for c in loaded],
+                   [c.replaces for c in replaced if c.replaces is not None])
 
     outcomes: list[FileOutcome] = []
     lineage = []
+    message: str | None
     for c in cands:
         if c.decision == "unchanged" and c.problem is None:
             outcomes.append(FileOutcome(c.relative, "unchanged"))

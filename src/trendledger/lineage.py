@@ -10,9 +10,10 @@ from typing import Any
 import duckdb
 import pandas as pd
 
+from . import moments
 from .errors import InputError, StoreError
 from .ingest import cannot_write, database_path, rollback_quietly
-from .store import first_row, utcnow
+from .store import first_row, stored_spec, utcnow
 
 
 def batches(con: duckdb.DuckDBPyConnection, batch: int | None = None) -> pd.DataFrame:
@@ -81,6 +82,7 @@ def retract(
             {"ids": ids},
         )
         con.execute("DELETE FROM measurements WHERE list_contains($ids, file_id)", {"ids": ids})
+        moments.update(con, stored_spec(con), [], ids)  # moments.py: the fits' stored sums
         con.execute(
             "UPDATE ingest_files SET status = 'retracted', changed_at = $now, message = $why "
             "WHERE list_contains($ids, file_id)",

@@ -30,7 +30,8 @@ class PathTemplate:
         for i, part in enumerate(parts):
             # split() alternates literal text and field names
             out.append(f"(?P<{part}>[^/]+)" if i % 2 else re.escape(part))
-        return re.compile("^" + "".join(out) + "$")
+        # \Z, not $: "$" also matches before a final newline, so "a.csv\n" would pass as "a"
+        return re.compile("^" + "".join(out) + r"\Z")
 
     def match(self, relative: str) -> dict[str, str] | str:
         """The field values of a relative path, or the reason it does not match."""
