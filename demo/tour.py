@@ -24,8 +24,12 @@ STEPS: list[tuple[str, str]] = [
      "trendledger fits --where 'r2 < 0.9' --sort r2 --limit 5"),
     ("The steepest fades, as CSV for a spreadsheet:",
      "trendledger fits --sort slope --limit 3 --format csv"),
-    ("Where did a cell's rows come from?",
-     "trendledger lineage --path 'incoming/2026-03-22/*' --format markdown"),
+    ("Where did a cell's rows come from? (the file first sent in mAh, then replaced)",
+     "trendledger lineage --path 'incoming/2026-03-22/c30.csv' --format markdown"),
+    ("The day a file arrived cut short, and its re-sent copy:",
+     "trendledger lineage --files --path 'incoming/2026-04-11/c33.csv' --format csv"),
+    ("Today's alerts:",
+     "trendledger watch"),
     ("Ask anything in SQL (read-only; parameters are bound, never pasted):",
      "trendledger query \"SELECT f.cell, f.slope, count(DISTINCT m.file_id) AS files "
      "FROM fit_fade AS f JOIN measurements AS m USING (cell) WHERE f.cell = \\$cell "

@@ -12,6 +12,8 @@ import duckdb
 import pandas as pd
 
 FORMATS = ("table", "csv", "json", "markdown")
+#: Widest text cell in a terminal table.
+WIDEST = 60
 
 
 def _cell(value: Any, digits: int) -> str:
@@ -52,6 +54,9 @@ def render(df: pd.DataFrame, fmt: str = "table", digits: int = 6) -> str:
         return json.dumps(rows(df), indent=1, default=str) + "\n"
     cells = [[_cell(v, digits) for v in rec] for rec in df.itertuples(index=False, name=None)]
     header = [str(c) for c in df.columns]
+    if fmt == "table":
+        # a terminal table stays readable: long text is cut (csv and json keep it whole)
+        cells = [[c if len(c) <= WIDEST else c[: WIDEST - 1] + "…" for c in row] for row in cells]
     if fmt == "markdown":
         lines = ["| " + " | ".join(header) + " |", "|" + "|".join("---" for _ in header) + "|"]
         lines += ["| " + " | ".join(c.replace("|", "\\|") for c in row) + " |" for row in cells]
