@@ -48,7 +48,7 @@ bench: $(STAMP)
 	$(BIN)/python bench/append_bench.py
 
 fuzz: $(STAMP)
-	TRENDLEDGER_FUZZ=long $(BIN)/pytest -q tests/test_hostile_input.py
+	TRENDLEDGER_FUZZ=long $(BIN)/pytest -q tests/test_hostile_input.py tests/test_crash.py tests/test_races.py
 
 clean:
 	rm -rf $(VENV) demo/run .pytest_cache .mypy_cache .ruff_cache
