@@ -358,6 +358,51 @@ def report(
     typer.echo(f"wrote {page}")
 
 
+@app.command("export")
+def export_cmd(
+    folder: Annotated[Path, typer.Argument(help="Export folder (new, empty, or an earlier export)")],
+    partition_by: Annotated[str | None, typer.Option("--partition-by", help="Template field to partition by (default: the first DATE field)")] = None,
+    as_json: Annotated[bool, typer.Option("--json", help="Print the summary as JSON")] = False,
+    store: StoreOpt = None,
+    wait: WaitOpt = DEFAULT_WAIT,
+) -> None:
+    """Export data (Hive-partitioned Parquet), lineage and the views' SQL for other engines."""
+    from .export import export
+
+    try:
+        done = export(default_store(store), folder, partition_by, wait=wait)
+    except TrendledgerError as err:
+        _fail(err)
+        return
+    if as_json:
+        typer.echo(json.dumps(done, indent=1))
+        return
+    typer.echo(f"{done['rows']} row(s) in {done['partitions']} partition(s) by {done['partition_by']}: "
+               f"{len(done['written'])} written, {len(done['removed'])} removed, {done['unchanged']} unchanged")
+    for dialect, path in done["views"].items():
+        missing = done["unavailable"].get(dialect)
+        typer.echo(f"  {path}" + (f" (not available: {', '.join(missing)})" if missing else ""))
+
+
+@app.command("sql")
+def sql_cmd(
+    dialect: Annotated[str, typer.Option("--dialect", help="spark, postgres, trino or duckdb")] = "duckdb",
+    location: Annotated[str, typer.Option("--location", help="Where the engine finds the export folder (path or URI)")] = ".",
+    store: StoreOpt = None,
+    wait: WaitOpt = DEFAULT_WAIT,
+) -> None:
+    """Print the views (and the sources over an export) in another engine's SQL."""
+    from .export import sql
+
+    try:
+        with _open(store, read_only=True, wait=wait) as led:
+            text = sql(led, dialect, location).text
+    except TrendledgerError as err:
+        _fail(err)
+        return
+    typer.echo(text, nl=False)
+
+
 @app.command()
 def demo(
     folder: Annotated[Path, typer.Argument(help="Where to write the demo lab")] = Path("demo-lab"),

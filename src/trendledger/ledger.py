@@ -216,6 +216,13 @@ class Ledger:
 
         return build(self, out, name=name, since=since, groups=groups, pair=pair)
 
+    def export(self, folder: str | Path, partition_by: str | None = None) -> dict[str, Any]:
+        """Write Parquet data, lineage and every view in Spark/PostgreSQL/Trino/DuckDB SQL to
+        ``folder`` (incremental); needs a read-write ledger, see :mod:`trendledger.export`."""
+        from .export import export
+
+        return export(self, folder, partition_by)
+
 
 def default_store(store_option: str | None) -> Path:
     return store.resolve(store_option, os.environ.get("TRENDLEDGER_STORE"))

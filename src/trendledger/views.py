@@ -40,6 +40,12 @@ KINDS: tuple[tuple[str, str, tuple[str, ...]], ...] = (
 #: the full moments view instead of the stored moments).
 KIND_VALUES: dict[str, dict[str, str]] = {"full": {"moments_view": "full_moments_view"}}
 
+#: Outside the store (an export read by another engine) there are no stored sums. There the
+#: full moments view comes first, the moments view reads it instead of the stored table, the
+#: fit view is fit.sql over those moments, and the full fit gives the same rows (alias.sql):
+#: every name and column stays the same, every number is computed from the rows.
+RECOMPUTED_FIT = ("fit",)
+
 #: Kinds whose template creates a table macro (called with arguments) instead of a view.
 TABLE_MACROS = frozenset({"break"})
 
@@ -108,8 +114,17 @@ def _pick(fit: Fit, files: tuple[str, ...], values: dict[str, Any]) -> templates
     return None
 
 
-def plan(spec: Spec) -> list[Planned]:
-    """Every macro and view the spec asks for, rendered but not yet run."""
+def _alias(fit: Fit, name: str, same_as: str) -> Planned:
+    stmts = templates.load("views/alias.sql").render({"view": name, "same_as": same_as})
+    return Planned(name, "full", fit.name, f"the same rows as {same_as}", tuple(stmts))
+
+
+def plan(spec: Spec, *, recompute: bool = False) -> list[Planned]:
+    """Every macro and view the spec asks for, rendered but not yet run.
+
+    ``recompute`` plans the views for an engine that has the rows but not the store's
+    stored sums (see :data:`RECOMPUTED_FIT`); the view names and columns stay the same.
+    """
     out: list[Planned] = []
     for macro in templates.load_dir("macros"):
         out.append(Planned(macro.name, "macro", None, macro.description,
@@ -122,11 +137,25 @@ def plan(spec: Spec) -> list[Planned]:
                        if not k.endswith("_view") and not isinstance(v, list)})
         installed: set[str] = set()
         for kind, suffix, files in KINDS:
+            if recompute and kind in ("full_moments", "full"):
+                if kind == "full":  # full_moments was planned before the moments view
+                    out.append(_alias(fit, fit.view + suffix, values["fit_view"]))
+                continue
             # a template can read only the sibling views already installed for this fit
             offered = {k: None if k.endswith("_view") and k not in installed else v
                        for k, v in values.items()}
             # moments.py: a kind may take a placeholder's value from another one
             offered.update({k: offered[v] for k, v in KIND_VALUES.get(kind, {}).items()})
+            if recompute and kind == "moments":
+                full = _pick(fit, ("moments_full",), offered)
+                if full is None:
+                    continue
+                name = values["full_moments_view"]
+                out.append(Planned(name, "full_moments", fit.name, full.description,
+                                   tuple(full.render({**offered, "view": name}))))
+                offered["moments_table"] = name
+            elif recompute and kind == "fit":
+                files = RECOMPUTED_FIT
             tpl = _pick(fit, files, offered)
             if tpl is None:
                 continue
