@@ -403,6 +403,7 @@ def test_sql_command_prints_each_dialect(tmp_path: Path) -> None:
     lab = build_lab(tmp_path / "lab", days=1)
     where = "s3a://lab-bucket/exports/run1"
     code, out, _ = tl("sql", "--dialect", "spark", "--location", where, "--store", str(lab.store))
+    printed = out
     assert code == 0
     statements = split_script(out)
     assert statements[0].startswith("CREATE OR REPLACE TEMPORARY VIEW `measurements`")
@@ -416,6 +417,8 @@ def test_sql_command_prints_each_dialect(tmp_path: Path) -> None:
     assert code == 2 and "unknown dialect 'oracle'" in err
     with Ledger.open(lab.store, read_only=True) as led:  # a read-only ledger can print SQL
         assert sql(led, "trino").text.count("CREATE OR REPLACE VIEW") >= 4
+        from_python = led.sql("spark", where)
+    assert from_python == printed
 
 
 def test_cli_export_reports_what_it_did(tmp_path: Path) -> None:

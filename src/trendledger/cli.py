@@ -379,9 +379,10 @@ def export_cmd(
         return
     typer.echo(f"{done['rows']} row(s) in {done['partitions']} partition(s) by {done['partition_by']}: "
                f"{len(done['written'])} written, {len(done['removed'])} removed, {done['unchanged']} unchanged")
-    for dialect, path in done["views"].items():
-        missing = done["unavailable"].get(dialect)
-        typer.echo(f"  {path}" + (f" (not available: {', '.join(missing)})" if missing else ""))
+    for dialect in done["views"]:
+        missing = sorted(done["unavailable"].get(dialect, {}))
+        typer.echo(f"  {folder / 'views' / f'{dialect}.sql'}"
+                   + (f" (not available: {', '.join(missing)})" if missing else ""))
 
 
 @app.command("sql")

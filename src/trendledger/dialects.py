@@ -1138,7 +1138,7 @@ class Porter:
                 and str(stmt.args.get("kind", "")).upper() == "VIEW"):
             kind = str(stmt.args.get("kind", "")).upper() if isinstance(stmt, exp.Create) else ""
             if "MACRO" in kind or "FUNCTION" in kind:
-                raise Unsupported("a table macro (a view that takes arguments) exists only in "
+                raise Unsupported("a table macro, a view that takes arguments, exists only in "
                                   "DuckDB")
             raise Unsupported(f"only CREATE VIEW statements are translated, not {stmt.key}")
         query = stmt.expression

@@ -243,8 +243,10 @@ def load_commands(lay: Layout, location: str) -> list[str]:
     """Shell commands that load the exported Parquet files into the PostgreSQL tables.
 
     PostgreSQL does not read Parquet; the DuckDB command line turns each table into CSV
-    on a pipe, and psql copies it in (its connection comes from the usual PG* variables).
-    The columns are listed on both sides, so their order never depends on the reader.
+    on a pipe, and psql empties the table and copies it in, in one transaction (its
+    connection comes from the usual PG* variables): loading again after a new export
+    replaces the rows, never adds them twice. The columns are listed on both sides, so
+    their order never depends on the reader.
     """
     out = []
     for table, columns, glob, hive in (
@@ -258,8 +260,9 @@ def load_commands(lay: Layout, location: str) -> list[str]:
         pg_names = ", ".join(_ident(c.name, "postgres") for c in columns)
         writer = (f"\\copy {_ident(table, 'postgres')} ({pg_names}) FROM STDIN "
                   "(FORMAT csv, HEADER)")
-        out.append(f"duckdb -c {shlex.quote(reader)} | psql -v ON_ERROR_STOP=1 "
-                   f"-c {shlex.quote(writer)}")
+        empty = f"TRUNCATE {_ident(table, 'postgres')}"
+        out.append(f"duckdb -c {shlex.quote(reader)} | psql -v ON_ERROR_STOP=1 -1 "
+                   f"-c {shlex.quote(empty)} -c {shlex.quote(writer)}")
     return out
 
 

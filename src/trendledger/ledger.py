@@ -223,6 +223,13 @@ class Ledger:
 
         return export(self, folder, partition_by)
 
+    def sql(self, dialect: str = "duckdb", location: str = ".") -> str:
+        """The views (and the sources over an export at ``location``) in ``dialect``'s SQL:
+        what ``export`` writes to ``views/<dialect>.sql``."""
+        from .export import sql
+
+        return sql(self, dialect, location).text
+
 
 def default_store(store_option: str | None) -> Path:
     return store.resolve(store_option, os.environ.get("TRENDLEDGER_STORE"))
