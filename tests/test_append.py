@@ -303,6 +303,20 @@ def test_init_refuses_existing_store_unless_forced(lab: Lab) -> None:
     Ledger.init(lab.spec, lab.store, force=True).close()
 
 
+def test_failed_init_leaves_no_store_behind(lab: Lab, monkeypatch: pytest.MonkeyPatch) -> None:
+    # a full disk while the views are installed: the next init must not find half a store
+    def full_disk(self: Ledger) -> None:
+        raise duckdb.IOException("could not write file: No space left on device")
+
+    monkeypatch.setattr(Ledger, "_install_views", full_disk)
+    with pytest.raises(StoreError, match="cannot create the store: .*No space left"):
+        lab.init()
+    assert not lab.store.exists()
+    assert not lab.store.with_name(lab.store.name + ".wal").exists()
+    monkeypatch.undo()
+    lab.init().close()  # no "already exists"
+
+
 def test_store_opens_in_duckdb_1_5_client(lab: Lab) -> None:
     import shutil
     import subprocess

@@ -59,7 +59,15 @@ class Ledger:
         target = Path(store_path) if store_path else root / store.DEFAULT_NAME
         store.create(target, spec, root=root, force=force)
         led = cls.open(target)
-        led._install_views()
+        try:
+            led._install_views()
+        except BaseException as err:  # half a store would block the next init
+            led.close()
+            store.discard(target)
+            if isinstance(err, duckdb.Error):
+                raise StoreError(f"cannot create the store: {str(err).splitlines()[0]}",
+                                 file=str(target)) from err
+            raise
         return led
 
     @classmethod

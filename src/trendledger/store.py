@@ -184,6 +184,7 @@ def create(path: Path, spec: Spec, *, root: Path, force: bool = False) -> None:
     try:
         con = duckdb.connect(str(path), config={"storage_compatibility_version": STORAGE_VERSION})
     except duckdb.Error as err:
+        discard(path)  # e.g. a full disk: a 0-byte file would read as "already exists"
         raise StoreError(f"cannot create the store: {_first_line(err)}", file=str(path)) from err
     try:
         con.execute("BEGIN")
@@ -204,9 +205,15 @@ def create(path: Path, spec: Spec, *, root: Path, force: bool = False) -> None:
         migrate(con, 1)
     except BaseException:
         con.close()
-        path.unlink(missing_ok=True)
+        discard(path)
         raise
     con.close()
+
+
+def discard(path: Path) -> None:
+    """Delete a store this process has just created and failed to finish, with its WAL."""
+    for leftover in (path, path.with_name(path.name + ".wal")):
+        leftover.unlink(missing_ok=True)
 
 
 def meta(con: duckdb.DuckDBPyConnection) -> dict[str, str]:
