@@ -234,6 +234,18 @@ def test_jsonl_input(tmp_path) -> None:
     with lab.open() as led, pytest.raises(InputError) as info:
         led.append()
     assert info.value.file == "incoming/2026-03-02/c02.jsonl"
+    # DuckDB alone would store 2 and 1 here: a fraction or a boolean in an INTEGER column
+    for bad, said in (('{"cycle": 1.5, "capacity_ah": 2.8}', "holds 1.5, not a whole number"),
+                      ('{"cycle": true, "capacity_ah": 2.8}', "holds true, not a number"),
+                      ('{"cycle": 3, "capacity_ah": false}', "holds false, not a number")):
+        lab.write("incoming/2026-03-02/c02.jsonl", '{"cycle": 2, "capacity_ah": 2.9}\n' + bad)
+        with lab.open() as led, pytest.raises(InputError, match=said) as info:
+            led.append()
+        assert info.value.line == 2
+    lab.write("incoming/2026-03-02/c02.jsonl", '{"cycle": 4.0, "capacity_ah": 2}\n')
+    with lab.open() as led:  # a whole number written as 4.0 is a whole number
+        assert led.append().rows == 1
+    assert lab.counts()[0] == 3
 
 
 def test_tsv_input(tmp_path) -> None:

@@ -224,6 +224,27 @@ def _check_jsonl(spec: Spec, data: bytes, path: str) -> None:
                 ) if p
             )
             raise InputError(f"keys do not match the spec ({what})", file=path, line=number)
+        for name, typ in spec.source.columns.items():
+            _check_json_number(obj[name], name, typ, path, number)
+
+
+#: Column types DuckDB would fill from a JSON number by rounding it (1.5 -> 2, true -> 1).
+_WHOLE = frozenset({"TINYINT", "SMALLINT", "INTEGER", "BIGINT", "HUGEINT", "UTINYINT",
+                    "USMALLINT", "UINTEGER", "UBIGINT", "UHUGEINT"})
+_NUMERIC = _WHOLE | {"FLOAT", "DOUBLE", "REAL"}
+
+
+def _check_json_number(value: object, name: str, typ: str, path: str, line: int) -> None:
+    """Refuse what DuckDB would change silently: a fraction or a boolean in a number column."""
+    base = typ.split("(")[0].upper()
+    if base not in _NUMERIC and not base.startswith("DECIMAL"):
+        return
+    if isinstance(value, bool):
+        raise InputError(f"column {name} ({typ}) holds {json.dumps(value)}, not a number",
+                         file=path, line=line)
+    if base in _WHOLE and isinstance(value, float) and not value.is_integer():
+        raise InputError(f"column {name} ({typ}) holds {value!r}, not a whole number "
+                         "(it would be rounded)", file=path, line=line)
 
 
 def _inspect(spec: Spec, cand: _Candidate) -> None:
