@@ -62,6 +62,7 @@ from sqlglot import exp
 from . import __version__, dialects, store, views
 from .errors import TrendledgerError
 from .spec import Spec
+from .watch import CAUTION
 
 #: Layout version of an export folder; a different one is rewritten whole.
 FORMAT = 1
@@ -271,9 +272,12 @@ _NOTES = {
         "DuckDB: the store's own macros and views, reading the exported Parquet files.",
     ],
     "spark": [
-        "Spark SQL (4.x): run in one session, e.g. spark-sql -f spark.sql, or statement by "
-        "statement from PySpark. Sources and views are TEMPORARY, the t-distribution macros "
-        "become temporary SQL functions (defining them takes Spark some seconds).",
+        "Spark SQL (4.x): run in one session, e.g. spark-sql -i spark.sql -e 'SELECT ...', or "
+        "statement by statement from PySpark. Sources and views are TEMPORARY, the "
+        "t-distribution macros become temporary SQL functions. The expressions are long: "
+        "defining the views takes Spark tens of seconds, and it runs them faster with "
+        "spark.sql.codegen.wholeStage=false (on one machine also give the driver 3g and "
+        "set spark.sql.autoBroadcastJoinThreshold=-1).",
         "Differences from DuckDB: a division by zero gives NULL (DuckDB: an infinity or NaN), "
         "compensated sums (fsum) are plain sums.",
     ],
@@ -354,6 +358,8 @@ def _translate(lay: Layout, dialect: str) -> _Translation:
         tuple(macros) if dialect == "duckdb" else tuple(porter.functions()),
         tuple(lines), unavailable,
     )
+    if len(_TRANSLATIONS) >= 16:  # a long-lived process exporting many stores
+        _TRANSLATIONS.clear()
     _TRANSLATIONS[key] = found
     return found
 
@@ -369,6 +375,7 @@ def script(lay: Layout, dialect: str, location: str) -> Script:
         f"{location}",
         f"spec {lay.spec.digest[:16]}, data partitioned by {lay.partition_by}",
         *_NOTES[dialect],
+        f"The crossing views: {CAUTION}",
     ]
     if done.unavailable:
         header.append("Not available here: " + ", ".join(
