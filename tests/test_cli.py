@@ -11,6 +11,7 @@ from pathlib import Path
 import pytest
 from typer.testing import CliRunner
 
+from trendledger import Ledger
 from trendledger.cli import app
 
 from .conftest import Lab
@@ -102,3 +103,23 @@ def test_installed_entry_point_runs() -> None:
         pytest.skip("the package is not installed in this environment (run make test)")
     out = subprocess.run([str(exe), "--version"], capture_output=True, text=True, check=True)
     assert out.stdout.startswith("trendledger ")
+
+
+def test_trace_prints_every_statement_with_its_parameters(lab: Lab) -> None:
+    lab.day("2026-03-02", {"c01": [(1, 3.0), (2, 2.99), (3, 2.98)]})
+    tl("init", "--spec", str(lab.spec), "--store", str(lab.store))
+    code, out, err = tl("--trace", "append", "--store", str(lab.store))
+    assert code == 0 and "-- [1] " in err and "INSERT INTO ingest_batches" in err
+    code, plain, quiet = tl("query", "SELECT count(*) AS n FROM measurements WHERE cycle > $c",
+                            "--param", "c=1", "--store", str(lab.store))
+    assert code == 0 and quiet == ""
+    code, out, err = tl("--trace", "query",
+                        "SELECT count(*) AS n FROM measurements WHERE cycle > $c",
+                        "--param", "c=1", "--store", str(lab.store))
+    assert code == 0 and out == plain  # the trace goes to stderr only
+    assert "WHERE cycle > $c" in err and "parameters: {'c': 1}" in err
+    # the API takes any writer
+    seen: list[str] = []
+    with Ledger.open(lab.store, read_only=True, trace=seen.append) as led:
+        led.fits("fade")
+    assert any('FROM "fit_fade"' in s for s in seen)

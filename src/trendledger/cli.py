@@ -12,6 +12,7 @@ import typer
 from . import __version__, output
 from .errors import TrendledgerError
 from .ledger import DEFAULT_WAIT, Ledger, default_store
+from .trace import Writer
 
 app = typer.Typer(
     add_completion=False,
@@ -37,8 +38,19 @@ def _fail(err: TrendledgerError) -> None:
     raise typer.Exit(err.exit_code)
 
 
+#: Options given before the command, set afresh by main_options on every invocation.
+_GLOBAL = {"trace": False}
+
+
+def _trace() -> Writer | None:
+    """Where --trace sends the statements: stderr, so stdout stays the command's output."""
+    if not _GLOBAL["trace"]:
+        return None
+    return lambda text: typer.echo(text, err=True)
+
+
 def _open(store: str | None, *, read_only: bool, wait: float) -> Ledger:
-    return Ledger.open(default_store(store), read_only=read_only, wait=wait)
+    return Ledger.open(default_store(store), read_only=read_only, wait=wait, trace=_trace())
 
 
 def _print(df: object, fmt: str) -> None:
@@ -77,7 +89,7 @@ def init(
             import os
 
             target = os.environ.get("TRENDLEDGER_STORE")
-        with Ledger.init(spec, target, force=force) as led:
+        with Ledger.init(spec, target, force=force, trace=_trace()) as led:
             typer.echo(f"created {led.path} for {spec} ({len(led.spec.fits)} fit(s))")
     except TrendledgerError as err:
         _fail(err)
@@ -370,7 +382,7 @@ def export_cmd(
     from .export import export
 
     try:
-        done = export(default_store(store), folder, partition_by, wait=wait)
+        done = export(default_store(store), folder, partition_by, wait=wait, trace=_trace())
     except TrendledgerError as err:
         _fail(err)
         return
@@ -427,8 +439,10 @@ def version_callback(value: bool) -> None:
 @app.callback()
 def main_options(
     version: Annotated[bool, typer.Option("--version", callback=version_callback, is_eager=True, help="Print the version")] = False,
+    trace: Annotated[bool, typer.Option("--trace", help="Print every SQL statement and its parameters to stderr")] = False,
 ) -> None:
     """Keep daily instrument batches in one DuckDB store and fit per-unit linear trends."""
+    _GLOBAL["trace"] = trace
 
 
 def main() -> None:

@@ -62,6 +62,7 @@ from sqlglot import exp
 from . import __version__, dialects, store, views
 from .errors import TrendledgerError
 from .spec import Spec
+from .trace import Writer, unwrap
 from .watch import CAUTION
 
 #: Layout version of an export folder; a different one is rewritten whole.
@@ -446,9 +447,10 @@ def split_script(text: str) -> list[str]:
     return out
 
 
-def sql(source: Any, dialect: str, location: str = ".", *, wait: float = 5.0) -> Script:
+def sql(source: Any, dialect: str, location: str = ".", *, wait: float = 5.0,
+        trace: Writer | None = None) -> Script:
     """The SQL file for ``dialect``; ``source`` is a store path, a Ledger or a connection."""
-    with _connection(source, wait=wait, write_files=False) as con:
+    with _connection(source, wait=wait, write_files=False, trace=trace) as con:
         return script(layout(con), dialect, location)
 
 
@@ -456,18 +458,18 @@ def sql(source: Any, dialect: str, location: str = ".", *, wait: float = 5.0) ->
 
 
 @contextlib.contextmanager
-def _connection(source: Any, *, wait: float, write_files: bool
+def _connection(source: Any, *, wait: float, write_files: bool, trace: Writer | None = None
                 ) -> Iterator[duckdb.DuckDBPyConnection]:
     if isinstance(source, str | Path):
-        con = store.connect(Path(source), read_only=True, wait=wait)
+        con = store.connect(Path(source), read_only=True, wait=wait, trace=trace)
         try:
             yield con
         finally:
             con.close()
         return
-    given = source if isinstance(source, duckdb.DuckDBPyConnection) \
+    given = source if isinstance(unwrap(source), duckdb.DuckDBPyConnection) \
         else getattr(source, "con", None)
-    if not isinstance(given, duckdb.DuckDBPyConnection):
+    if given is None or not isinstance(unwrap(given), duckdb.DuckDBPyConnection):
         raise ExportError("export needs a store path, a Ledger or a DuckDB connection")
     if write_files:
         allowed = store.first_row(given, "SELECT current_setting('enable_external_access')")
@@ -634,6 +636,7 @@ def export(
     *,
     dialects_wanted: tuple[str, ...] = dialects.DIALECTS,
     wait: float = 5.0,
+    trace: Writer | None = None,
 ) -> dict[str, Any]:
     """Export the store to ``folder`` (see the module notes); returns what was done.
 
@@ -642,7 +645,7 @@ def export(
     """
     started = time.perf_counter()
     target = Path(folder).resolve()
-    with _connection(source, wait=wait, write_files=True) as con, _locked(target):
+    with _connection(source, wait=wait, write_files=True, trace=trace) as con, _locked(target):
         old = _read_manifest(target)
         _clean(target)
         staging = target / f"{_STAGING}{uuid.uuid4().hex}"

@@ -20,6 +20,7 @@ from .ingest import BatchSummary, Progress
 from .lineage import CheckReport
 from .spec import Spec
 from .spec import load as load_spec
+from .trace import Writer
 
 #: Seconds a command waits for another process's lock before giving up.
 DEFAULT_WAIT = 5.0
@@ -50,15 +51,16 @@ class Ledger:
     # -- opening ---------------------------------------------------------------------------
     @classmethod
     def init(
-        cls, spec_path: str | Path, store_path: str | Path | None = None, *, force: bool = False
+        cls, spec_path: str | Path, store_path: str | Path | None = None, *, force: bool = False,
+        trace: Writer | None = None,
     ) -> Ledger:
         """Create a store for the spec (default: ``trendledger.duckdb`` beside it) and open it."""
         spec_file = Path(spec_path)
         spec = load_spec(spec_file)
         root = spec_file.resolve().parent
         target = Path(store_path) if store_path else root / store.DEFAULT_NAME
-        store.create(target, spec, root=root, force=force)
-        led = cls.open(target)
+        store.create(target, spec, root=root, force=force, trace=trace)
+        led = cls.open(target, trace=trace)
         try:
             led._install_views()
         except BaseException as err:  # half a store would block the next init
@@ -72,12 +74,16 @@ class Ledger:
 
     @classmethod
     def open(
-        cls, path: str | Path, *, read_only: bool = False, wait: float = DEFAULT_WAIT
+        cls, path: str | Path, *, read_only: bool = False, wait: float = DEFAULT_WAIT,
+        trace: Writer | None = None,
     ) -> Ledger:
-        """Open an existing store; a read-only store cannot write and cannot read files."""
+        """Open an existing store; a read-only store cannot write and cannot read files.
+
+        ``trace`` (e.g. ``print``) receives every SQL statement with its parameters.
+        """
         target = Path(path)
         con = store.connect(target, read_only=read_only, wait=wait,
-                            config=dict(LOCKED) if read_only else None)
+                            config=dict(LOCKED) if read_only else None, trace=trace)
         return cls(target, con, read_only)
 
     def close(self) -> None:

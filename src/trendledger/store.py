@@ -20,6 +20,8 @@ from . import __version__, templates
 from .errors import BusyError, StoreError
 from .spec import Spec
 from .spec import parse as parse_spec
+from .trace import Writer
+from .trace import wrap as trace_wrap
 
 #: The store's own tables are built by sql/schema/NNN_*.sql, applied in order;
 #: a store records the last one it has and is upgraded in place on a write open.
@@ -47,8 +49,12 @@ def connect(
     read_only: bool,
     wait: float = 0.0,
     config: dict[str, Any] | None = None,
+    trace: Writer | None = None,
 ) -> duckdb.DuckDBPyConnection:
-    """Open an existing store, waiting up to ``wait`` seconds for another process's lock."""
+    """Open an existing store, waiting up to ``wait`` seconds for another process's lock.
+
+    ``trace`` receives every statement run on the connection (see :mod:`trendledger.trace`).
+    """
     if not path.exists():
         raise StoreError(
             "no store here", file=str(path),
@@ -60,7 +66,8 @@ def connect(
         try:
             settings = dict(config or {})
             lock = bool(settings.pop("lock_configuration", False))
-            con = duckdb.connect(str(path), read_only=read_only, config=settings)
+            con = trace_wrap(duckdb.connect(str(path), read_only=read_only, config=settings),
+                             trace)
             # Session settings first, then the lock: DuckDB's own progress bar would
             # write to our stdout, and a locked connection can no longer turn it off.
             con.execute("SET enable_progress_bar = false")
@@ -170,7 +177,8 @@ def measurements_ddl(spec: Spec) -> str:
     return create.sql(dialect="duckdb")
 
 
-def create(path: Path, spec: Spec, *, root: Path, force: bool = False) -> None:
+def create(path: Path, spec: Spec, *, root: Path, force: bool = False,
+           trace: Writer | None = None) -> None:
     """Create a new store for ``spec``; refuse to overwrite unless ``force``."""
     if path.exists():
         if not force:
@@ -182,7 +190,8 @@ def create(path: Path, spec: Spec, *, root: Path, force: bool = False) -> None:
             wal.unlink()
     path.parent.mkdir(parents=True, exist_ok=True)
     try:
-        con = duckdb.connect(str(path), config={"storage_compatibility_version": STORAGE_VERSION})
+        con = trace_wrap(duckdb.connect(
+            str(path), config={"storage_compatibility_version": STORAGE_VERSION}), trace)
     except duckdb.Error as err:
         discard(path)  # e.g. a full disk: a 0-byte file would read as "already exists"
         raise StoreError(f"cannot create the store: {_first_line(err)}", file=str(path)) from err
