@@ -27,6 +27,8 @@ from .conftest import SPEC
 from .engines import postgres_bin, postgres_cluster, spark_session
 from .test_export import DAYS, SPEC_TWO_FITS, build_lab, day_cells, reference, same_rows, write_day
 
+pytestmark = [pytest.mark.engines, pytest.mark.slow]
+
 #: Every companion view of a fit: a limit to cross, a horizon, a window per day; and a
 #: second fit through the origin (its fit and moments views only).
 ENGINE_SPEC = SPEC + """limit = 2.9
