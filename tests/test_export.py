@@ -19,8 +19,9 @@ import sqlglot
 from sqlglot import exp
 
 from trendledger import Ledger, templates
-from trendledger.dialects import DIALECTS, Porter, _post_order, _Rewriter
+from trendledger.dialects import DIALECTS, Porter, _Rewriter
 from trendledger.export import ExportError, export, split_script, sql
+from trendledger.lowering import post_order
 
 from .conftest import SPEC, Lab
 from .test_cli import tl
@@ -444,7 +445,7 @@ def test_split_script_keeps_statements_whole() -> None:
 def _rewritten(query: str, target: str) -> str:
     """A DuckDB query after ``target``'s rewrites, printed back as DuckDB SQL."""
     tree = sqlglot.parse_one(query, read="duckdb")
-    return _post_order(tree, _Rewriter(target)).sql("duckdb")
+    return post_order(tree, _Rewriter(target)).sql("duckdb")
 
 
 def test_regr_rewrites_match_duckdb_aggregates() -> None:

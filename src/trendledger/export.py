@@ -59,7 +59,7 @@ import duckdb
 import sqlglot
 from sqlglot import exp
 
-from . import __version__, dialects, store, views
+from . import __version__, dialects, lowering, store, views
 from .errors import TrendledgerError
 from .spec import Spec
 from .trace import Writer, unwrap
@@ -311,8 +311,8 @@ class Script:
 @functools.cache
 def _translator() -> str:
     """Digest of the translating code, so a changed translator rewrites the SQL files."""
-    code = b"".join(Path(m.__file__).read_bytes() for m in (dialects, sys.modules[__name__])
-                    if m.__file__)
+    code = b"".join(Path(m.__file__).read_bytes()
+                    for m in (lowering, dialects, sys.modules[__name__]) if m.__file__)
     return hashlib.sha256(code).hexdigest()
 
 
