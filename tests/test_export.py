@@ -303,6 +303,17 @@ def test_refuses_a_folder_that_is_not_an_export(tmp_path: Path) -> None:
     assert sorted(p.name for p in target.iterdir()) == [".trendledger-export.lock", "notes.txt"]
 
 
+def test_a_folder_that_cannot_be_written_is_one_line(tmp_path: Path) -> None:
+    lab = build_lab(tmp_path / "lab", days=1)
+    (tmp_path / "afile").write_text("not a folder")
+    for where, said in ((tmp_path / "afile", "File exists"),
+                        (tmp_path / "afile" / "below", "Not a directory")):
+        code, out, err = tl("export", str(where), "--store", str(lab.store))
+        assert code == 2 and out == ""
+        assert err.startswith(f"trendledger: error: {where}: cannot write the export: {said}")
+        assert "Traceback" not in err and len(err.strip().splitlines()) == 1
+
+
 def test_read_only_ledger_cannot_write_files(tmp_path: Path) -> None:
     lab = build_lab(tmp_path / "lab", days=1)
     with lab.open(read_only=True) as led, pytest.raises(ExportError, match="may not write"):
@@ -343,7 +354,7 @@ def test_leftovers_of_an_interrupted_export_are_cleaned(tmp_path: Path,
         real(path, text)
 
     monkeypatch.setattr(module, "_write_atomic", fail_on_manifest)
-    with pytest.raises(OSError, match="disk full"):
+    with pytest.raises(ExportError, match="cannot write the export: disk full"):
         export(lab.store, target)
     monkeypatch.setattr(module, "_write_atomic", real)
     done = export(lab.store, target)

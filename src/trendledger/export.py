@@ -641,8 +641,23 @@ def export(
     """Export the store to ``folder`` (see the module notes); returns what was done.
 
     ``source`` is a store path (opened read-only, allowed to write files), a read-write
-    Ledger, or a DuckDB connection that may write files.
+    Ledger, or a DuckDB connection that may write files. A folder that cannot be written
+    (a file of that name, no such parent, a full disk) raises :class:`ExportError`; the
+    partitions already in place stay whole, and the next export finishes the job.
     """
+    try:
+        return _export(source, folder, partition_by, dialects_wanted, wait, trace)
+    except OSError as err:
+        raise ExportError(f"cannot write the export: {err.strerror or err}",
+                          file=str(err.filename or folder)) from err
+    except duckdb.IOException as err:
+        raise ExportError(f"cannot write the export: {str(err).splitlines()[0]}",
+                          file=str(folder)) from err
+
+
+def _export(source: Any, folder: str | Path, partition_by: str | None,
+            dialects_wanted: tuple[str, ...], wait: float, trace: Writer | None
+            ) -> dict[str, Any]:
     started = time.perf_counter()
     target = Path(folder).resolve()
     with _connection(source, wait=wait, write_files=True, trace=trace) as con, _locked(target):
