@@ -123,3 +123,21 @@ def test_trace_prints_every_statement_with_its_parameters(lab: Lab) -> None:
     with Ledger.open(lab.store, read_only=True, trace=seen.append) as led:
         led.fits("fade")
     assert any('FROM "fit_fade"' in s for s in seen)
+
+
+def test_paths_that_cannot_be_used_are_one_line_errors(lab: Lab, tmp_path: Path) -> None:
+    lab.day("2026-03-02", {"c01": [(1, 3.0), (2, 2.99), (3, 2.98)]})
+    tl("init", "--spec", str(lab.spec), "--store", str(lab.store))
+    tl("append", "--store", str(lab.store))
+    blocker = tmp_path / "afile"
+    blocker.write_text("a file, not a folder")
+    for fmt in ("csv", "parquet"):
+        where = blocker / f"out.{fmt}"
+        code, out, err = tl("query", "SELECT 1 AS a", "--format", fmt, "--out", str(where),
+                            "--store", str(lab.store))
+        assert code == 2 and out == ""
+        assert err.startswith(f"trendledger: error: {where}: cannot write the result: ")
+        assert err.rstrip().endswith("Not a directory") and err.count("\n") == 1
+    # a root that does not exist would report every file missing and pass
+    code, out, err = tl("check", "--root", str(tmp_path / "moved"), "--store", str(lab.store))
+    assert code == 2 and "the root folder does not exist" in err

@@ -301,12 +301,13 @@ def query(
         return
     if out is None:
         _print(df, fmt)
-    elif fmt == "parquet":
-        output.write_parquet(df, out)
-        typer.echo(f"wrote {len(df)} row(s) to {out}")
-    else:
-        out.write_text(output.render(df, fmt), encoding="utf-8")
-        typer.echo(f"wrote {len(df)} row(s) to {out}")
+        return
+    try:
+        output.write_file(df, out, fmt)
+    except TrendledgerError as err:
+        _fail(err)
+        return
+    typer.echo(f"wrote {len(df)} row(s) to {out}")
 
 
 spec_app = typer.Typer(help="Show or change the spec stored in the store.", no_args_is_help=True)

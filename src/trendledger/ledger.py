@@ -14,7 +14,7 @@ import pandas as pd
 
 from . import evolve, ingest, lineage, store, views
 from . import fits as fits_mod
-from .errors import StoreError
+from .errors import StoreError, TrendledgerError
 from .evolve import SpecChange
 from .ingest import BatchSummary, Progress
 from .lineage import CheckReport
@@ -162,7 +162,11 @@ class Ledger:
 
     def check(self, root: str | Path | None = None) -> CheckReport:
         """Re-hash loaded files on disk and recount rows; see :class:`CheckReport`."""
-        return lineage.check(self.con, Path(root) if root else self.root)
+        folder = Path(root) if root else self.root
+        if not folder.is_dir():  # every file would read as missing, and check would pass
+            raise TrendledgerError("the root folder does not exist", file=str(folder),
+                                   hint="pass the folder the data moved to with --root")
+        return lineage.check(self.con, folder)
 
     def fits(
         self,

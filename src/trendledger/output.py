@@ -11,6 +11,8 @@ from typing import Any
 import duckdb
 import pandas as pd
 
+from .errors import TrendledgerError
+
 FORMATS = ("table", "csv", "json", "markdown")
 #: Widest text cell in a terminal table.
 WIDEST = 60
@@ -90,6 +92,22 @@ def parse_value(raw: str) -> Any:
     if re.fullmatch(r"[+-]?(\d+\.\d*|\.\d+|\d+)([eE][+-]?\d+)?", text):
         return float(text)
     return raw
+
+
+def write_file(df: pd.DataFrame, path: Path, fmt: str) -> None:
+    """Write a result to ``path`` as ``fmt`` (a text format, or parquet); a path that
+    cannot be written is a one-line error naming it."""
+    try:
+        if fmt == "parquet":
+            write_parquet(df, path)
+        else:
+            path.write_text(render(df, fmt), encoding="utf-8")
+    except OSError as err:
+        raise TrendledgerError(f"cannot write the result: {err.strerror or err}",
+                               file=str(path)) from err
+    except duckdb.IOException as err:
+        raise TrendledgerError(f"cannot write the result: {str(err).splitlines()[0]}",
+                               file=str(path)) from err
 
 
 def write_parquet(df: pd.DataFrame, path: Path) -> None:
