@@ -10,6 +10,7 @@ from __future__ import annotations
 import os
 import re
 import shlex
+import shutil
 import subprocess
 import sys
 from pathlib import Path
@@ -40,6 +41,8 @@ STEPS: list[tuple[str, str]] = [
      "trendledger check"),
     ("What views does the store hold?",
      "trendledger views"),
+    ("Hand the rows and the views to Spark, PostgreSQL or Trino (see Scaling out):",
+     "trendledger export export"),
 ]
 
 START, END = "<!-- tour:start -->", "<!-- tour:end -->"
@@ -59,6 +62,7 @@ def main() -> None:
     if not (RUN / "trendledger.duckdb").exists():
         subprocess.run([str(BIN / "trendledger"), "demo", str(RUN)], check=True,
                        stdout=subprocess.DEVNULL)
+    shutil.rmtree(RUN / "export", ignore_errors=True)  # the export step starts afresh
     blocks = []
     for words, command in STEPS:
         shown = command.replace("\\$", "$")
