@@ -6,7 +6,15 @@ so the CLI can print one clear line instead of a traceback.
 
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass
+
+
+def first_line(error: BaseException) -> str:
+    """The first line of a library's error message, without terminal colour codes: DuckDB
+    and sqlglot add context lines and markers that do not belong in a one-line error."""
+    text = str(error).strip().splitlines()
+    return re.sub(r"\x1b\[[0-9;]*m", "", text[0]) if text else type(error).__name__
 
 
 @dataclass

@@ -58,6 +58,7 @@ import duckdb
 from sqlglot import exp
 
 from . import __version__, dialects, store
+from .errors import first_line
 from .export_layout import DATA, Column, ExportError, Layout, connection, layout
 from .export_sql import (
     FORMAT,
@@ -254,7 +255,7 @@ def export(
         raise ExportError(f"cannot write the export: {err.strerror or err}",
                           file=str(err.filename or folder)) from err
     except duckdb.IOException as err:
-        raise ExportError(f"cannot write the export: {str(err).splitlines()[0]}",
+        raise ExportError(f"cannot write the export: {first_line(err)}",
                           file=str(folder)) from err
 
 

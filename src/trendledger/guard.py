@@ -44,7 +44,7 @@ import sqlglot
 from sqlglot import exp
 from sqlglot.tokens import Token, TokenType
 
-from .errors import QueryRefused
+from .errors import QueryRefused, first_line
 
 DIALECT = "duckdb"
 
@@ -364,7 +364,7 @@ def check_query(sql: str, catalog: str | None = None) -> exp.Expression:
     try:
         rendered = tree.sql(dialect=DIALECT)
     except Exception as error:
-        raise QueryRefused(f"refused: cannot render the query: {_first_line(error)}") from None
+        raise QueryRefused(f"refused: cannot render the query: {first_line(error)}") from None
     _check_with_duckdb(rendered, tree, catalog, rendered=True)
     return tree
 
@@ -500,7 +500,7 @@ def check_where(text: str, columns: Collection[str]) -> exp.Expression:
     except Exception as error:  # any parser failure means "no"
         line, column = _error_position(error)
         raise QueryRefused(
-            f"refused: cannot parse the --where condition: {_first_line(error)}",
+            f"refused: cannot parse the --where condition: {first_line(error)}",
             line=line,
             column=column,
         ) from None
@@ -680,7 +680,7 @@ def _tokenize(text: str, what: str) -> list[Token]:
     try:
         return list(sqlglot.Dialect.get_or_raise(DIALECT).tokenize(text))
     except Exception as error:  # unterminated strings, comments and the like
-        raise QueryRefused(f"refused: cannot read {what}: {_first_line(error)}") from None
+        raise QueryRefused(f"refused: cannot read {what}: {first_line(error)}") from None
 
 
 def _split_statements(tokens: list[Token]) -> list[list[Token]]:
@@ -793,7 +793,7 @@ def _parse_one_statement(sql: str) -> exp.Expression:
     except Exception as error:  # ParseError, but also any sqlglot bug: fail closed
         line, column = _error_position(error)
         raise QueryRefused(
-            f"refused: cannot parse the query: {_first_line(error)}",
+            f"refused: cannot parse the query: {first_line(error)}",
             line=line,
             column=column,
         ) from None
@@ -1086,7 +1086,7 @@ def _check_duckdb_view(sql: str, tree: exp.Expression, catalog: str | None) -> N
             statements = connection.extract_statements(sql)
         except Exception as error:
             raise QueryRefused(
-                f"refused: DuckDB cannot parse the query: {_first_line(error)}"
+                f"refused: DuckDB cannot parse the query: {first_line(error)}"
             ) from None
         if len(statements) != 1:
             raise QueryRefused(
@@ -1106,7 +1106,7 @@ def _check_duckdb_view(sql: str, tree: exp.Expression, catalog: str | None) -> N
             serialised = json.loads(row[0]) if row else None
         except Exception as error:
             raise QueryRefused(
-                f"refused: DuckDB cannot check the query: {_first_line(error)}"
+                f"refused: DuckDB cannot check the query: {first_line(error)}"
             ) from None
     if not isinstance(serialised, dict) or serialised.get("error") is not False:
         message = serialised.get("error_message") if isinstance(serialised, dict) else None
@@ -1209,12 +1209,6 @@ def _describe_node(node: exp.Expr) -> str:
         return f"the literal {node.sql(dialect=DIALECT)}"
     words = re.sub(r"(?<=[a-z])(?=[A-Z])", " ", type(node).__name__).upper()
     return words
-
-
-def _first_line(error: BaseException) -> str:
-    text = str(error).strip().splitlines()
-    cleaned = re.sub(r"\x1b\[[0-9;]*m", "", text[0]) if text else type(error).__name__
-    return cleaned
 
 
 def _error_position(error: BaseException) -> tuple[int | None, int | None]:

@@ -14,7 +14,7 @@ import pandas as pd
 
 from . import evolve, ingest, lineage, store, views
 from . import fits as fits_mod
-from .errors import StoreError, TrendledgerError
+from .errors import StoreError, TrendledgerError, first_line
 from .evolve import SpecChange
 from .ingest import BatchSummary, Progress
 from .lineage import CheckReport
@@ -67,7 +67,7 @@ class Ledger:
             led.close()
             store.discard(target)
             if isinstance(err, duckdb.Error):
-                raise StoreError(f"cannot create the store: {str(err).splitlines()[0]}",
+                raise StoreError(f"cannot create the store: {first_line(err)}",
                                  file=str(target)) from err
             raise
         return led

@@ -11,7 +11,7 @@ from typing import Any
 import duckdb
 import pandas as pd
 
-from .errors import TrendledgerError
+from .errors import TrendledgerError, first_line
 
 FORMATS = ("table", "csv", "json", "markdown")
 #: Widest text cell in a terminal table.
@@ -106,7 +106,7 @@ def write_file(df: pd.DataFrame, path: Path, fmt: str) -> None:
         raise TrendledgerError(f"cannot write the result: {err.strerror or err}",
                                file=str(path)) from err
     except duckdb.IOException as err:
-        raise TrendledgerError(f"cannot write the result: {str(err).splitlines()[0]}",
+        raise TrendledgerError(f"cannot write the result: {first_line(err)}",
                                file=str(path)) from err
 
 

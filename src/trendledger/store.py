@@ -17,7 +17,7 @@ import duckdb
 from sqlglot import exp
 
 from . import __version__, templates
-from .errors import BusyError, StoreError
+from .errors import BusyError, StoreError, first_line
 from .spec import Spec
 from .spec import parse as parse_spec
 from .trace import Writer
@@ -75,7 +75,7 @@ def connect(
                 con.execute("SET lock_configuration = true")
         except duckdb.IOException as err:
             if not _is_lock_error(err):
-                raise StoreError(f"cannot open the store: {_first_line(err)}",
+                raise StoreError(f"cannot open the store: {first_line(err)}",
                                  file=str(path)) from err
             if time.monotonic() >= deadline:
                 raise BusyError(
@@ -86,7 +86,7 @@ def connect(
             delay = min(delay * 2, 0.5)
             continue
         except duckdb.Error as err:
-            raise StoreError(f"cannot open the store: {_first_line(err)}", file=str(path)) from err
+            raise StoreError(f"cannot open the store: {first_line(err)}", file=str(path)) from err
         try:
             found = con.execute(
                 "SELECT value FROM tl_meta WHERE key = 'schema_version'"
@@ -153,10 +153,6 @@ def migrate(con: duckdb.DuckDBPyConnection, version: int) -> list[int]:
     return applied
 
 
-def _first_line(err: Exception) -> str:
-    return str(err).strip().splitlines()[0] if str(err).strip() else type(err).__name__
-
-
 def measurements_ddl(spec: Spec) -> str:
     """CREATE TABLE for the data: declared columns, template fields, then file_id."""
     columns = [
@@ -194,7 +190,7 @@ def create(path: Path, spec: Spec, *, root: Path, force: bool = False,
             str(path), config={"storage_compatibility_version": STORAGE_VERSION}), trace)
     except duckdb.Error as err:
         discard(path)  # e.g. a full disk: a 0-byte file would read as "already exists"
-        raise StoreError(f"cannot create the store: {_first_line(err)}", file=str(path)) from err
+        raise StoreError(f"cannot create the store: {first_line(err)}", file=str(path)) from err
     try:
         con.execute("BEGIN")
         for stmt in templates.load("schema/001_base.sql").render({}):
