@@ -467,7 +467,7 @@ def test_regr_rewrites_match_duckdb_aggregates() -> None:
     functions = ["count", "avgx", "avgy", "sxx", "syy", "sxy", "slope", "intercept", "r2"]
     query = ("SELECT g, " + ", ".join(f"regr_{f}(y, x)" for f in functions)
              + " FROM t GROUP BY g ORDER BY g")
-    want = con.execute(query).fetchall()
+    want = con.execute(query).fetchall()  # reference: DuckDB's native regr_* aggregates
     trino = _rewritten(query, "trino")  # Trino keeps the two it has, rewrites the rest
     assert "REGR_COUNT" not in trino.upper() and "REGR_SLOPE" in trino.upper()
     tree = sqlglot.parse_one(query, read="duckdb")
@@ -536,6 +536,8 @@ def test_lowered_t_macros_match_duckdb() -> None:
              "tl_t_two_sided(2.5, 3.0)", "tl_t_two_sided(-40.0, 12.0)",
              "tl_t_upper(1e-3, 1.0)", "lgamma(0.3)", "lgamma(12.5)"]
     query = "SELECT " + ", ".join(calls)
+    # reference: DuckDB's own lgamma and our t macros, which test_t_dist.py checks against
+    # scipy.stats.t
     want = con.execute(query).fetchone()
     assert want is not None
     plain = con.execute(Porter("duckdb", macros).expression(query)).fetchone()
