@@ -508,6 +508,16 @@ def test_math_and_float_tests_keep_duckdb_values(target: str) -> None:
                 assert a == b, (value, check, a, b)
 
 
+def test_duckdb_format_patterns_are_refused_not_passed_through() -> None:
+    # sqlglot would print format('{:g}', x) as FORMAT / FORMAT_STRING, which read printf
+    # patterns: the text would come out wrong, so the view must be named unavailable
+    statement = "CREATE VIEW v AS SELECT format('p {:.3g}', x) AS note FROM t"
+    for target in ("spark", "postgres", "trino"):
+        done = Porter(target, []).view("v", [statement])
+        assert done.statements == () and done.unsupported is not None
+        assert "format()" in done.unsupported
+
+
 def test_division_by_zero_is_null_where_engines_raise() -> None:
     con = duckdb.connect()
     query = "SELECT 1.0 / x, x / 2, 7 / 2 FROM (SELECT CAST(0 AS DOUBLE) AS x)"

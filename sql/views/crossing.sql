@@ -17,8 +17,8 @@
 --                   out_of_range), 'flat line never reaches the limit', 'slope points away from
 --                   the limit' (the line meets the limit before the group's first x: it was
 --                   beyond the limit where the data begin and moves away from it; all NULL),
---                   'slope not significant: p ... >= alpha ...' (the fit's
---                   slope_p against its alpha; all NULL), 'interval unbounded at level ...'
+--                   'slope not significant at alpha ...' (the fit's slope_p
+--                   against its alpha; all NULL), 'interval unbounded at level ...'
 --                   (cross_lo, cross_hi NULL), 'bound unbounded' (cross_bound NULL).
 --
 -- Fieller's method. With u = x - x_mean, the line is y_mean + slope u, its standard error at u is
@@ -75,7 +75,7 @@ judged AS (
             WHEN slope = 0 THEN 'flat line never reaches the limit'
             WHEN x_mean + u0 < x_min THEN 'slope points away from the limit'
             WHEN status = 'ok' AND NOT slope_p < __alpha__
-                THEN format('slope not significant: p {:.3g} >= alpha {:g}', slope_p, __alpha__)
+                THEN 'slope not significant at alpha ' || __alpha_text__
         END AS no_line
     FROM setup
 ),
@@ -113,7 +113,7 @@ SELECT
         ELSE nullif(concat_ws('; ',
             CASE
                 WHEN NOT coalesce(isfinite(x_lo) AND isfinite(x_hi), false)
-                    THEN format('interval unbounded at level {:g}', __level__)
+                    THEN 'interval unbounded at level ' || __level_text__
             END,
             CASE WHEN NOT coalesce(isfinite(x_bound), false) THEN 'bound unbounded' END
         ), '')

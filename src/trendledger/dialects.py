@@ -593,6 +593,9 @@ class Porter:
                 name = func_name(node)
                 if name not in known:
                     raise Unsupported(f"uses DuckDB's {name}(), which {self.target} lacks")
+            if isinstance(node, exp.Format):  # sqlglot maps it, but the {} specs differ
+                raise Unsupported(f"formats text with DuckDB's format(), whose {{}} patterns "
+                                  f"{self.target} does not read")
             if self.target == "postgres" and isinstance(
                     node, exp.Lambda | exp.Struct | exp.Transform | exp.Array):
                 raise Unsupported(f"uses DuckDB's lists or lambdas ({node.key}), which "

@@ -50,7 +50,8 @@ RECOMPUTED_FIT = ("fit",)
 TABLE_MACROS = frozenset({"break"})
 
 #: Kinds whose statistics assume a line with an intercept: a fit through the origin gets them
-#: only from an ``_origin`` twin of the template (none is written yet), never from the plain one.
+#: only from an ``_origin`` twin of the template (points and crossing have one), never from
+#: the plain one.
 INTERCEPT_ONLY = frozenset({"windows", "points", "change", "break", "crossing", "alerts"})
 
 
@@ -87,6 +88,9 @@ def fit_values(spec: Spec, fit: Fit) -> dict[str, Any]:
         "window_x": fit.window_x,
         "min_r2": fit.min_r2,
         "alpha": fit.alpha,
+        # the same numbers as text for notes, formatted here so every engine prints them alike
+        "alpha_text": Text(f"{fit.alpha:g}"),
+        "level_text": Text(f"{fit.level:g}"),
     }
     for kind, suffix, _ in KINDS:
         values[f"{kind}_view"] = fit.view + suffix
