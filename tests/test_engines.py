@@ -30,12 +30,13 @@ from .test_export import DAYS, SPEC_TWO_FITS, build_lab, day_cells, reference, s
 pytestmark = [pytest.mark.engines, pytest.mark.slow]
 
 #: Every companion view of a fit: a limit to cross, a horizon, a window per day; and a
-#: second fit through the origin (its fit and moments views only).
+#: second fit through the origin with a limit (its fit, moments, points and crossing views).
 ENGINE_SPEC = SPEC + """limit = 2.9
 horizon = 40
 window = "day"
 min_r2 = 0.9
-""" + SPEC_TWO_FITS[len(SPEC):]
+""" + SPEC_TWO_FITS[len(SPEC):] + """limit = 1.0
+"""
 
 
 #: Rows, and distinct rows (a file may repeat a reading): the same in every engine when
