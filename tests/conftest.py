@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import datetime
 import os
 from pathlib import Path
 
@@ -54,6 +55,18 @@ class Lab:
             text = "cycle,capacity_ah\n" + "".join(f"{c},{v}\n" for c, v in rows)
             out.append(self.write(f"incoming/{day}/{cell}.csv", text))
         return out
+
+    def series(self, series: dict[str, list[tuple[int, float | None]]],
+               per_day: int = 4) -> None:
+        """Long series per cell, cut into one file per cell and day (``per_day`` rows each,
+        days from 2026-03-02); a None capacity is an empty cell."""
+        first = datetime.date(2026, 3, 2)
+        for cell, rows in series.items():
+            for start in range(0, len(rows), per_day):
+                day = first + datetime.timedelta(days=start // per_day)
+                text = "cycle,capacity_ah\n" + "".join(
+                    f"{c},{'' if v is None else repr(v)}\n" for c, v in rows[start:start + per_day])
+                self.write(f"incoming/{day.isoformat()}/{cell}.csv", text)
 
     def init(self) -> Ledger:
         return Ledger.init(self.spec, self.store)

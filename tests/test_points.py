@@ -88,20 +88,10 @@ def _series() -> dict[str, list[tuple[int, float | None]]]:
 SERIES = _series()
 
 
-def _write(lab: Lab, series: dict[str, list[tuple[int, float | None]]], per_day: int = 4) -> None:
-    """One file per cell and day, ``per_day`` rows each, days from 2026-03-02."""
-    for cell, rows in series.items():
-        for start in range(0, len(rows), per_day):
-            day = pd.Timestamp("2026-03-02") + pd.Timedelta(days=start // per_day)
-            text = "cycle,capacity_ah\n" + "".join(
-                f"{c},{'' if v is None else repr(v)}\n" for c, v in rows[start:start + per_day])
-            lab.write(f"incoming/{day.date().isoformat()}/{cell}.csv", text)
-
-
 @pytest.fixture(scope="module")
 def store(tmp_path_factory: pytest.TempPathFactory) -> Path:
     lab = Lab(tmp_path_factory.mktemp("points") / "lab", SPEC_POINTS)
-    _write(lab, SERIES)
+    lab.series(SERIES)
     with lab.init() as led:
         led.append()
     return lab.store
