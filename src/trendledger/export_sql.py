@@ -137,7 +137,7 @@ _NOTES = {
         "compensated sums (fsum) are plain sums.",
     ],
     "postgres": [
-        "PostgreSQL (14 or later): tables to load the Parquet files into (see below), the "
+        "PostgreSQL (tested with 15): tables to load the Parquet files into (see below), the "
         "t-distribution macros as SQL functions, and the views.",
         "Differences from DuckDB: a division by zero gives NULL, exp() below 1e-308 gives 0, "
         "compensated sums (fsum) are plain sums, and PostgreSQL raises an error where a value "
