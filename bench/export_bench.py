@@ -2,7 +2,7 @@
 
 A store of about 10M rows (1,000 cells x 100 days x 100 rows, one CSV file per cell and
 day, the layout of ``demo/spec.toml``) is exported to Hive-partitioned Parquet with
-``trendledger.export.export``. Measured:
+``trendledger.export.write.export``. Measured:
 
 * the first full export (rows/s; it also renders the views for every engine, which the
   process then caches), a second full export into a new folder (the data alone), an
@@ -38,7 +38,7 @@ import numpy as np
 from common import table, timed
 
 from trendledger import Ledger
-from trendledger.export import export, split_script
+from trendledger.export.write import export, split_script
 
 REPO = Path(__file__).resolve().parent.parent
 

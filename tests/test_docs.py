@@ -6,8 +6,8 @@ from pathlib import Path
 
 import typer
 
-from trendledger import templates
 from trendledger.cli import app
+from trendledger.views import templates
 
 ROOT = Path(__file__).resolve().parents[1]
 

@@ -21,8 +21,8 @@ from typing import Any
 import duckdb
 import pytest
 
-from trendledger import export as export_module
-from trendledger.export import export, split_script
+from trendledger.export import write as export_module
+from trendledger.export.write import export, split_script
 
 from .conftest import SPEC
 from .engines import postgres_bin, postgres_cluster, spark_session

@@ -5,8 +5,10 @@ from __future__ import annotations
 import duckdb
 import pytest
 
-from trendledger import Ledger, SpecError, store, templates
+from trendledger import Ledger, SpecError
 from trendledger.spec import load as load_spec
+from trendledger.store import db as store
+from trendledger.views import templates
 
 from .conftest import SPEC, Lab
 from .test_cli import tl

@@ -18,10 +18,11 @@ import pytest
 import sqlglot
 from sqlglot import exp
 
-from trendledger import Ledger, templates
-from trendledger.dialects import DIALECTS, Porter, _Rewriter
-from trendledger.export import ExportError, export, split_script, sql
-from trendledger.lowering import post_order
+from trendledger import Ledger
+from trendledger.export.dialects import DIALECTS, Porter, _Rewriter
+from trendledger.export.lowering import post_order
+from trendledger.export.write import ExportError, export, split_script, sql
+from trendledger.views import templates
 
 from .conftest import SPEC, Lab
 from .test_cli import tl
@@ -341,7 +342,7 @@ def test_leftovers_of_an_interrupted_export_are_cleaned(tmp_path: Path,
     columns, want = store_rows(lab)
     assert exported_rows(target, columns) == want
     # a crash before the manifest is written: the next export finishes the job
-    import trendledger.export as module
+    import trendledger.export.write as module
 
     write_day(lab, DAYS[3], day_cells(3))
     with lab.open() as led:

@@ -24,7 +24,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import stats
 
-from trendledger import templates
+from trendledger.views import templates
 
 from . import strd
 from .conftest import nist_dir

@@ -15,7 +15,7 @@ from hypothesis import strategies as st
 from sqlglot import exp
 
 from trendledger.errors import QueryRefused
-from trendledger.guard import (
+from trendledger.query.guard import (
     READ_STATEMENT_TYPES,
     check_params,
     check_query,

@@ -1,4 +1,4 @@
-"""The stored per-group sums (src/trendledger/moments.py, sql/moments/*.sql).
+"""The stored per-group sums (src/trendledger/views/moments.py, sql/moments/*.sql).
 
 Every append merges the sums of its own rows into ``tl_moments_<fit>``; the fit views read
 those sums. The reference in every test is the full two-pass recompute from every row, the

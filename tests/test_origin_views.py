@@ -22,8 +22,9 @@ import statsmodels.api as sm
 from scipy import optimize
 from statsmodels.stats.outliers_influence import OLSInfluence
 
-from trendledger import Ledger, views
-from trendledger.export import export
+from trendledger import Ledger
+from trendledger.export.write import export
+from trendledger.views import install as views
 
 from .conftest import Lab
 

@@ -20,7 +20,7 @@ from scipy import optimize
 from statsmodels.stats.outliers_influence import OLSInfluence
 
 from trendledger import Ledger
-from trendledger.watch import CAUTION
+from trendledger.views.watch import CAUTION
 
 from .conftest import SPEC, Lab
 from .test_cli import tl

@@ -21,11 +21,11 @@ from typer.testing import CliRunner
 from trendledger import Ledger, __version__
 from trendledger.cli import app
 from trendledger.demo import run
-from trendledger.report import CAUTION, LABEL, SCRIPT, label_sql, plain_reason, table
+from trendledger.report.build import CAUTION, LABEL, SCRIPT, label_sql, plain_reason, table
 
 from .conftest import Lab
 
-plots = pytest.importorskip("trendledger.plots", reason="the report needs matplotlib")
+plots = pytest.importorskip("trendledger.report.plots", reason="the report needs matplotlib")
 
 DEMO_DAYS = 72  # the knees fall on days 57-64; by day 72 every knee cell alerts
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"

@@ -22,7 +22,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from trendledger import templates
+from trendledger.views import templates
 
 SQL_FILE = Path(__file__).resolve().parents[1] / "sql" / "macros" / "t_dist.sql"
 

@@ -16,7 +16,7 @@ import pandas as pd
 import pytest
 
 from trendledger import Ledger, demo_data
-from trendledger.watch import CAUTION, SEVERITY, failing
+from trendledger.views.watch import CAUTION, SEVERITY, failing
 
 from .conftest import Lab
 from .test_cli import tl

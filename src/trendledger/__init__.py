@@ -2,6 +2,8 @@
 
 __version__ = "0.1.0"
 
+from trendledger.ledger import Ledger  # noqa: E402
+
 from .errors import (  # noqa: E402
     BusyError,
     InputError,
@@ -10,7 +12,6 @@ from .errors import (  # noqa: E402
     StoreError,
     TrendledgerError,
 )
-from .ledger import Ledger  # noqa: E402
 
 __all__ = [
     "BusyError",

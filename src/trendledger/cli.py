@@ -9,10 +9,11 @@ from typing import Annotated
 
 import typer
 
-from . import __version__, output
-from .errors import TrendledgerError
-from .ledger import DEFAULT_WAIT, Ledger, default_store
-from .trace import Writer
+from trendledger import __version__
+from trendledger.errors import TrendledgerError
+from trendledger.ledger import DEFAULT_WAIT, Ledger, default_store
+from trendledger.query import output
+from trendledger.trace import Writer
 
 app = typer.Typer(
     add_completion=False,
@@ -215,7 +216,7 @@ def fits(
     wait: WaitOpt = DEFAULT_WAIT,
 ) -> None:
     """Per-group linear fits from the store's views."""
-    from .watch import CAUTION
+    from trendledger.views.watch import CAUTION
 
     try:
         with _open(store, read_only=True, wait=wait) as led:
@@ -239,7 +240,7 @@ def watch(
     wait: WaitOpt = DEFAULT_WAIT,
 ) -> None:
     """Today's alerts grouped by unit, newest first; exit 1 when one is at or above --fail-on."""
-    from . import watch as watch_mod
+    from trendledger.views import watch as watch_mod
 
     if fail_on is not None and fail_on not in watch_mod.SEVERITY:
         raise typer.BadParameter(f"choose one of {', '.join(watch_mod.SEVERITY)}", param_hint="--fail-on")
@@ -380,7 +381,7 @@ def export_cmd(
     wait: WaitOpt = DEFAULT_WAIT,
 ) -> None:
     """Export data (Hive-partitioned Parquet), lineage and the views' SQL for other engines."""
-    from .export import export
+    from trendledger.export.write import export
 
     try:
         done = export(default_store(store), folder, partition_by, wait=wait, trace=_trace())
@@ -406,7 +407,7 @@ def sql_cmd(
     wait: WaitOpt = DEFAULT_WAIT,
 ) -> None:
     """Print the views (and the sources over an export) in another engine's SQL."""
-    from .export import sql
+    from trendledger.export.write import sql
 
     try:
         with _open(store, read_only=True, wait=wait) as led:
@@ -423,7 +424,7 @@ def demo(
     days: Annotated[int | None, typer.Option("--days", help="Only the first N days")] = None,
 ) -> None:
     """Generate the bundled battery-lab scenario, build a store day by day, print the fits."""
-    from .demo import run
+    from trendledger.demo import run
 
     try:
         run(folder, days=days, echo=typer.echo)

@@ -11,10 +11,10 @@ import shutil
 from collections.abc import Callable
 from pathlib import Path
 
-from . import demo_data
-from .ledger import Ledger
-from .output import render
-from .report import ReportError
+from trendledger import demo_data
+from trendledger.ledger import Ledger
+from trendledger.query.output import render
+from trendledger.report.build import ReportError
 
 Echo = Callable[[str], None]
 

@@ -12,15 +12,17 @@ from typing import Any
 import duckdb
 import pandas as pd
 
-from . import evolve, ingest, lineage, store, views
-from . import fits as fits_mod
-from .errors import StoreError, TrendledgerError, first_line
-from .evolve import SpecChange
-from .ingest import BatchSummary, Progress
-from .lineage import CheckReport
-from .spec import Spec
-from .spec import load as load_spec
-from .trace import Writer
+from trendledger.errors import StoreError, TrendledgerError, first_line
+from trendledger.spec import Spec
+from trendledger.spec import load as load_spec
+from trendledger.store import db as store
+from trendledger.store import evolve, ingest, lineage
+from trendledger.store.evolve import SpecChange
+from trendledger.store.ingest import BatchSummary, Progress
+from trendledger.store.lineage import CheckReport
+from trendledger.trace import Writer
+from trendledger.views import install as views
+from trendledger.views import read as fits_mod
 
 #: Seconds a command waits for another process's lock before giving up.
 DEFAULT_WAIT = 5.0
@@ -185,7 +187,7 @@ class Ledger:
         """
         fit = self.spec.fit(name)
         if break_at is not None:
-            from .watch import break_test
+            from trendledger.views.watch import break_test
 
             if view:
                 raise StoreError("give either a companion view or a break point, not both")
@@ -196,7 +198,7 @@ class Ledger:
 
     def watch(self, name: str | None = None) -> pd.DataFrame:
         """Today's alerts of fit ``name`` (all fits when None), newest unit first (watch.alerts)."""
-        from .watch import alerts
+        from trendledger.views.watch import alerts
 
         return alerts(self.con, self.spec, name)
 
@@ -216,7 +218,7 @@ class Ledger:
 
     def query(self, sql: str, params: dict[str, Any] | None = None) -> pd.DataFrame:
         """Run one read-only statement with bound named parameters (``$name``)."""
-        from .query import run
+        from trendledger.query.run import run
 
         return run(self.con, sql, params or {})
 
@@ -230,21 +232,21 @@ class Ledger:
         pair: str | None = None,
     ) -> Path:
         """Write ``out/index.html`` (self-contained) and its PNG images; returns the page."""
-        from .report import build
+        from trendledger.report.build import build
 
         return build(self, out, name=name, since=since, groups=groups, pair=pair)
 
     def export(self, folder: str | Path, partition_by: str | None = None) -> dict[str, Any]:
         """Write Parquet data, lineage and every view in Spark/PostgreSQL/Trino/DuckDB SQL to
         ``folder`` (incremental); needs a read-write ledger, see :mod:`trendledger.export`."""
-        from .export import export
+        from trendledger.export.write import export
 
         return export(self, folder, partition_by)
 
     def sql(self, dialect: str = "duckdb", location: str = ".") -> str:
         """The views (and the sources over an export at ``location``) in ``dialect``'s SQL:
         what ``export`` writes to ``views/<dialect>.sql``."""
-        from .export import sql
+        from trendledger.export.write import sql
 
         return sql(self, dialect, location).text
 

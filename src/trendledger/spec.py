@@ -15,7 +15,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from .errors import SpecError
+from trendledger.errors import SpecError
 
 FORMATS = ("csv", "tsv", "parquet", "jsonl")
 WINDOWS = ("day", "week", "month")

@@ -10,10 +10,10 @@ from typing import Any
 import duckdb
 import pandas as pd
 
-from . import moments
-from .errors import InputError, StoreError
-from .ingest import cannot_write, database_path, rollback_quietly
-from .store import first_row, stored_spec, utcnow
+from trendledger.errors import InputError, StoreError
+from trendledger.store.db import first_row, stored_spec, utcnow
+from trendledger.store.ingest import cannot_write, database_path, rollback_quietly
+from trendledger.views import moments
 
 
 def batches(con: duckdb.DuckDBPyConnection, batch: int | None = None) -> pd.DataFrame:

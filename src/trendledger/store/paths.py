@@ -12,7 +12,7 @@ import re
 from dataclasses import dataclass
 from pathlib import Path
 
-from .spec import FIELD
+from trendledger.spec import FIELD
 
 
 @dataclass(frozen=True)

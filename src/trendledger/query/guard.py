@@ -44,7 +44,7 @@ import sqlglot
 from sqlglot import exp
 from sqlglot.tokens import Token, TokenType
 
-from .errors import QueryRefused, first_line
+from trendledger.errors import QueryRefused, first_line
 
 DIALECT = "duckdb"
 

@@ -26,7 +26,7 @@ from pathlib import Path
 import sqlglot
 from sqlglot import exp
 
-from .errors import TemplateError
+from trendledger.errors import TemplateError
 
 PLACEHOLDER = re.compile(r"^__([a-z][a-z0-9_]*)__$")
 
@@ -42,7 +42,7 @@ def sql_dir() -> Path:
     packaged = resources.files("trendledger") / "sql"
     if packaged.is_dir():
         return Path(str(packaged))
-    return Path(__file__).resolve().parents[2] / "sql"
+    return Path(__file__).resolve().parents[3] / "sql"
 
 
 @dataclass(frozen=True)

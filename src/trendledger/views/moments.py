@@ -37,8 +37,9 @@ import duckdb
 import sqlglot
 from sqlglot import exp
 
-from . import templates, views
-from .spec import Fit, Spec
+from trendledger.spec import Fit, Spec
+from trendledger.views import install as views
+from trendledger.views import templates
 
 #: The temporary table holding the two-pass sums of whatever rows are being summed.
 BATCH = "tl_mbatch"

@@ -47,7 +47,7 @@ from dataclasses import dataclass
 import sqlglot
 from sqlglot import exp
 
-from .lowering import (
+from trendledger.export.lowering import (
     Let,
     Names,
     Unsupported,

@@ -16,12 +16,13 @@ from typing import Any
 import duckdb
 from sqlglot import exp
 
-from . import __version__, templates
-from .errors import BusyError, StoreError, first_line
-from .spec import Spec
-from .spec import parse as parse_spec
-from .trace import Writer
-from .trace import wrap as trace_wrap
+from trendledger import __version__
+from trendledger.errors import BusyError, StoreError, first_line
+from trendledger.spec import Spec
+from trendledger.spec import parse as parse_spec
+from trendledger.trace import Writer
+from trendledger.trace import wrap as trace_wrap
+from trendledger.views import templates
 
 #: The store's own tables are built by sql/schema/NNN_*.sql, applied in order;
 #: a store records the last one it has and is upgraded in place on a write open.

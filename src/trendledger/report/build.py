@@ -32,14 +32,14 @@ import numpy as np
 import pandas as pd
 from sqlglot import exp
 
-from . import __version__
-from .errors import TrendledgerError
-from .fits import view_columns
-from .spec import Fit, did_you_mean
+from trendledger import __version__
+from trendledger.errors import TrendledgerError
+from trendledger.spec import Fit, did_you_mean
+from trendledger.views.read import view_columns
 
 if TYPE_CHECKING:
-    from .ledger import Ledger
-    from .plots import Drawn
+    from trendledger.ledger import Ledger
+    from trendledger.report.plots import Drawn
 
 CAUTION = ("Statistical projection, not a safety or release decision; follow your local "
            "standards and qualified review.")
@@ -549,7 +549,7 @@ def _chunks(items: list[Any], size: int) -> list[list[Any]]:
 
 def _plots() -> Any:
     try:
-        from . import plots
+        from trendledger.report import plots
     except ImportError as err:  # matplotlib is an optional extra
         raise ReportError("the report needs matplotlib",
                           hint="pip install 'trendledger[report]'") from err
@@ -735,7 +735,7 @@ def build(
 def _panel_data(fit: Fit, fits: pd.DataFrame, points: pd.DataFrame,
                 moments: pd.DataFrame | None, crossing: pd.DataFrame | None, name: str,
                 subtitle: str) -> Any:
-    from .plots import Crossing, Panel
+    from trendledger.report.plots import Crossing, Panel
 
     row = fits[fits[LABEL] == name].iloc[0]
     mine = points[points[LABEL] == name]

@@ -12,8 +12,8 @@ from typing import Any
 import duckdb
 import pandas as pd
 
-from .errors import QueryRefused
-from .guard import check_params, check_query
+from trendledger.errors import QueryRefused
+from trendledger.query.guard import check_params, check_query
 
 
 def run(con: duckdb.DuckDBPyConnection, sql: str, params: dict[str, Any]) -> pd.DataFrame:

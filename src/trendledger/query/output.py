@@ -11,7 +11,7 @@ from typing import Any
 import duckdb
 import pandas as pd
 
-from .errors import TrendledgerError, first_line
+from trendledger.errors import TrendledgerError, first_line
 
 FORMATS = ("table", "csv", "json", "markdown")
 #: Widest text cell in a terminal table.

@@ -29,11 +29,12 @@ import duckdb
 import pandas as pd
 from sqlglot import exp
 
-from . import __version__, moments
-from .errors import InputError, StoreError
-from .paths import PathTemplate, expand, relative_to_root
-from .spec import FLOATS, NUMERIC, Spec
-from .store import first_row, utcnow
+from trendledger import __version__
+from trendledger.errors import InputError, StoreError
+from trendledger.spec import FLOATS, NUMERIC, Spec
+from trendledger.store.db import first_row, utcnow
+from trendledger.store.paths import PathTemplate, expand, relative_to_root
+from trendledger.views import moments
 
 Progress = Callable[[str, int, int], None]
 GLOBBY = set("*?[]{}\\")

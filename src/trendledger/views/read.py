@@ -6,9 +6,9 @@ import duckdb
 import pandas as pd
 from sqlglot import exp
 
-from .errors import QueryRefused
-from .guard import check_where
-from .spec import did_you_mean
+from trendledger.errors import QueryRefused
+from trendledger.query.guard import check_where
+from trendledger.spec import did_you_mean
 
 
 def view_columns(con: duckdb.DuckDBPyConnection, view: str) -> list[str]:

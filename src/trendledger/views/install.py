@@ -14,9 +14,9 @@ from typing import Any
 import duckdb
 from sqlglot import exp
 
-from . import templates
-from .spec import Fit, Spec
-from .templates import Text
+from trendledger.spec import Fit, Spec
+from trendledger.views import templates
+from trendledger.views.templates import Text
 
 #: View kinds per fit, in install order (later ones may read earlier ones).
 #: Each is ``sql/views/<file>.sql``; a kind whose file is absent is not installed.
@@ -174,7 +174,7 @@ def plan(spec: Spec, *, recompute: bool = False) -> list[Planned]:
 
 def install(con: duckdb.DuckDBPyConnection, spec: Spec) -> int:
     """Create or refresh macros and views inside the caller's transaction; returns how many."""
-    from . import moments  # moments.py: the stored sums and statistics
+    from trendledger.views import moments
 
     have = {
         name: digest for name, digest in con.execute("SELECT name, sql_hash FROM tl_views")

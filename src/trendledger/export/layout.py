@@ -17,10 +17,11 @@ import duckdb
 import sqlglot
 from sqlglot import exp
 
-from . import store, views
-from .errors import TrendledgerError
-from .spec import Spec
-from .trace import Writer, unwrap
+from trendledger.errors import TrendledgerError
+from trendledger.spec import Spec
+from trendledger.store import db as store
+from trendledger.trace import Writer, unwrap
+from trendledger.views import install as views
 
 DATA = "measurements"
 LINEAGE = ("ingest_batches", "ingest_files")

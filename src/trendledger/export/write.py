@@ -57,10 +57,11 @@ from urllib.parse import quote
 import duckdb
 from sqlglot import exp
 
-from . import __version__, dialects, store
-from .errors import first_line
-from .export_layout import DATA, Column, ExportError, Layout, connection, layout
-from .export_sql import (
+from trendledger import __version__
+from trendledger.errors import first_line
+from trendledger.export import dialects
+from trendledger.export.layout import DATA, Column, ExportError, Layout, connection, layout
+from trendledger.export.scripts import (
     FORMAT,
     Script,
     load_commands,
@@ -70,8 +71,9 @@ from .export_sql import (
     sql_ident,
     sql_string,
 )
-from .export_sql import digest as script_digest
-from .trace import Writer
+from trendledger.export.scripts import digest as script_digest
+from trendledger.store import db as store
+from trendledger.trace import Writer
 
 __all__ = ["ExportError", "Script", "export", "load_commands", "split_script", "sql"]
 

@@ -19,10 +19,10 @@ import duckdb
 import pandas as pd
 from sqlglot import exp
 
-from .errors import QueryRefused
-from .fits import view_columns
-from .guard import check_where
-from .spec import Fit, Spec, did_you_mean
+from trendledger.errors import QueryRefused
+from trendledger.query.guard import check_where
+from trendledger.spec import Fit, Spec, did_you_mean
+from trendledger.views.read import view_columns
 
 #: Printed under every output that shows a projected crossing of a limit.
 CAUTION = ("statistical projection, not a safety or release decision; follow your local "

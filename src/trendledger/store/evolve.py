@@ -12,9 +12,10 @@ from dataclasses import dataclass, field
 import duckdb
 from sqlglot import exp
 
-from . import store, views
-from .errors import SpecError
-from .spec import Spec
+from trendledger.errors import SpecError
+from trendledger.spec import Spec
+from trendledger.store import db as store
+from trendledger.views import install as views
 
 
 @dataclass

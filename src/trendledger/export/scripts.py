@@ -19,10 +19,11 @@ from typing import Any
 
 from sqlglot import exp
 
-from . import __version__, dialects, lowering
-from .export_layout import DATA, Column, ExportError, Layout, connection, layout
-from .trace import Writer
-from .watch import CAUTION
+from trendledger import __version__
+from trendledger.export import dialects, lowering
+from trendledger.export.layout import DATA, Column, ExportError, Layout, connection, layout
+from trendledger.trace import Writer
+from trendledger.views.watch import CAUTION
 
 #: Layout version of an export folder; a different one is rewritten whole.
 FORMAT = 1
