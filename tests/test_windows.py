@@ -1,4 +1,4 @@
-"""Trends over time: window fits (windows.sql, windows_x.sql), the slope change of the latest
+"""Trends over time: window fits (windows.sql with the window key parts), the slope change of the latest
 window (change.sql) and the Chow break test (break.sql, ``fits --break-at``).
 
 One store from real files: five weeks of four cycles a day for a few cells, read through the

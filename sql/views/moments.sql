@@ -1,5 +1,6 @@
--- Centred sums of every group, the input of the straight-line fit: count, means, sxx, sxy, syy,
--- the residual sum of squares of the least-squares line, and the ranges of x and y.
+-- Sums of every group, the input of the straight-line fit: count, means, sxx, sxy, syy (centred,
+-- or about the origin for a fit through the origin), the residual sum of squares of the
+-- least-squares line, and the ranges of x and y.
 
 -- One row per group (a NULL group key is a group like any other), with the group columns and:
 --   n                 pairs (x, y) that count: both present and finite (BIGINT)
@@ -14,6 +15,9 @@
 --   rss_noise         a bound on the rounding error of rss; the fit calls a group with
 --                     rss <= rss_noise a perfect fit
 -- A group whose pairs are all skipped has n = 0 and NULL sums, means and ranges.
+-- For a fit through the origin sxx = sum(x^2), sxy = sum(xy), syy = sum(y^2), so that
+-- slope = sxy / sxx as with an intercept; rss is that of the line through the origin
+-- (sql/moments/merge_origin.sql, moments_full_origin.sql).
 --
 -- The view reads a stored table with one row per group, so it costs the same however long the
 -- history: every append merges the sums of its new rows into the table (Chan, Golub and LeVeque

@@ -1,12 +1,15 @@
--- Straight-line fit of y on x for every group and calendar window (day, week or month of the date
--- field): the statistics of the fit view, per window, with the window's first and next day.
+-- Straight-line fit of y on x for every group and window (a calendar day, week or month of the
+-- date field, or a fixed span of x): the statistics of the fit view, per window, with its bounds.
 
--- One row per group and window that holds at least one row with a date (rows without a date
--- belong to no window). Columns:
+-- The window key is a part: sql/parts/window_calendar.sql for a fit with `window` (windows by
+-- date_trunc of the date field, weeks starting on Monday; rows without a date belong to no
+-- window), sql/parts/window_span.sql for a fit with `window_x` = w (windows [k w, (k + 1) w) with
+-- k = floor(x / w); rows whose x is missing or not finite belong to no window).
+-- One row per group and window that holds at least one row of it. Columns:
 --   group columns   as in the fit view
---   window_start    first day of the window, date_trunc(window, date field), as a DATE (weeks
---                   start on Monday)
---   window_end      first day after the window: the window is [window_start, window_end), a DATE
+--   window_start    first day of the window (a DATE), or k w (a DOUBLE)
+--   window_end      first day after the window, or (k + 1) w: the window is
+--                   [window_start, window_end)
 --   n ... status    the columns of the fit view (fit.sql) with the same meaning and the same
 --                   status rules (too_few_points, constant_x, out_of_range, constant_y,
 --                   perfect_fit, ok), computed from the pairs of the window alone
@@ -29,13 +32,13 @@ CREATE OR REPLACE VIEW __view__ AS
 WITH pairs AS NOT MATERIALIZED (
     SELECT
         __group__,
-        CAST(date_trunc(CAST(__window__ AS VARCHAR), __window_field__) AS DATE) AS window_start,
+        __window_key__.window_start AS window_start,
         CASE WHEN isfinite(CAST(__x__ AS DOUBLE)) AND isfinite(CAST(__y__ AS DOUBLE))
             THEN CAST(__x__ AS DOUBLE) END AS px,
         CASE WHEN isfinite(CAST(__x__ AS DOUBLE)) AND isfinite(CAST(__y__ AS DOUBLE))
             THEN CAST(__y__ AS DOUBLE) END AS py
     FROM __source__
-    WHERE __window_field__ IS NOT NULL
+    WHERE __window_key__.in_window
 ),
 pass1 AS MATERIALIZED (
     SELECT
@@ -199,7 +202,7 @@ verdict AS (
 SELECT
     g.__group__,
     g.window_start,
-    CAST(g.window_start + CAST('1 ' || __window__ AS INTERVAL) AS DATE) AS window_end,
+    __window_key__.window_end AS window_end,
     g.n,
     g.x_min,
     g.x_max,

@@ -16,7 +16,7 @@ from sqlglot import exp
 
 from trendledger.spec import Fit, Spec
 from trendledger.views import templates
-from trendledger.views.templates import Text
+from trendledger.views.templates import Part, Text
 
 #: View kinds per fit, in install order (later ones may read earlier ones).
 #: Each is ``sql/views/<file>.sql``; a kind whose file is absent is not installed.
@@ -25,7 +25,7 @@ KINDS: tuple[tuple[str, str, tuple[str, ...]], ...] = (
     # candidate that exists and whose placeholders the fit can all fill is used.
     ("moments", "_moments", ("moments",)),
     ("fit", "", ("fit_stored",)),  # moments.py: fit.sql's rows, stored and kept up to date
-    ("windows", "_windows", ("windows", "windows_x")),
+    ("windows", "_windows", ("windows",)),
     ("points", "_points", ("points",)),
     ("change", "_change", ("change",)),
     ("break", "_break", ("break",)),
@@ -86,6 +86,9 @@ def fit_values(spec: Spec, fit: Fit) -> dict[str, Any]:
         "window": Text(fit.window) if fit.window else None,
         "window_field": dates[0] if dates else None,
         "window_x": fit.window_x,
+        # the window key part (sql/parts/): calendar windows of the date field, or spans of x
+        "window_key": (Part("window_calendar") if fit.window
+                       else Part("window_span") if fit.window_x else None),
         "min_r2": fit.min_r2,
         "alpha": fit.alpha,
         # the same numbers as text for notes, formatted here so every engine prints them alike
@@ -112,7 +115,11 @@ def _pick(fit: Fit, files: tuple[str, ...], values: dict[str, Any]) -> templates
         if not (templates.sql_dir() / relative).is_file():
             continue
         tpl = templates.load(relative)
-        if all(values.get(p) is not None for p in tpl.placeholders
+        needed = set(tpl.placeholders)
+        for key in tpl.placeholders:  # a part's own placeholders must be filled as well
+            if isinstance(values.get(key), Part):
+                needed |= templates.part_placeholders(str(values[key]))
+        if all(values.get(p) is not None for p in needed
                if p != "view" and not p.endswith("_or_null")):
             return tpl
     return None

@@ -8,7 +8,10 @@ template with sqlglot and replace those identifier nodes in the syntax tree:
 * a list of strings expands in place wherever the placeholder stands in a list
   (SELECT list, GROUP BY, PARTITION BY, USING, ...),
 * a number becomes a numeric literal,
-* a :class:`Text` becomes a string literal (for example a date_trunc unit).
+* a :class:`Text` becomes a string literal (for example a date_trunc unit),
+* a :class:`Part` names a file under ``sql/parts/`` holding named expressions: a column
+  ``__slot__.name`` becomes that file's expression ``name``, itself filled with the same values
+  (so a view states what it is made of, and a variant picks another part for the same slot).
 
 User text is therefore never pasted into SQL: a column called
 ``x"; DROP TABLE t; --`` is just a strange quoted name.
@@ -34,6 +37,11 @@ class Text(str):
     """A value to substitute as a string literal (plain ``str`` means an identifier)."""
 
 
+class Part(str):
+    """A value naming ``sql/parts/<name>.sql``: ``__slot__.expr`` in a template becomes the
+    part's expression ``expr`` (see :func:`part_expressions`)."""
+
+
 Value = str | float | int | Sequence[str] | None
 
 
@@ -57,7 +65,11 @@ class Template:
 
     def render(self, values: Mapping[str, Value]) -> list[str]:
         """Return the statements as DuckDB SQL with every placeholder substituted."""
-        missing = self.placeholders - set(values)
+        wanted = set(self.placeholders)
+        for key in self.placeholders:
+            if isinstance(values.get(key), Part):
+                wanted |= part_placeholders(str(values[key]))
+        missing = wanted - set(values)
         if missing:
             raise TemplateError(
                 f"no value for placeholder(s) {', '.join(sorted(missing))}", file=str(self.path)
@@ -130,7 +142,61 @@ def load_dir(relative: str) -> list[Template]:
     return [load(f"{relative}/{p.name}") for p in sorted(folder.glob("*.sql"))]
 
 
+@cache
+def part_expressions(name: str) -> dict[str, exp.Expression]:
+    """The named expressions of ``sql/parts/<name>.sql``: one ``SELECT expr AS name, ...``."""
+    tpl = load(f"parts/{name}.sql")
+    stmt = tpl.statements[0]
+    if len(tpl.statements) != 1 or not isinstance(stmt, exp.Select):
+        raise TemplateError("a part holds one SELECT of named expressions", file=str(tpl.path))
+    out: dict[str, exp.Expression] = {}
+    for item in stmt.expressions:
+        if not isinstance(item, exp.Alias):
+            raise TemplateError(f"part expression {item.sql()} has no name (AS ...)",
+                                file=str(tpl.path))
+        out[item.alias] = item.this
+    return out
+
+
+#: Nodes a part's expression can replace without parentheses whatever stands around them.
+_ATOMS = (exp.Column, exp.Literal, exp.Func, exp.Cast, exp.Case, exp.Paren, exp.Null,
+          exp.Boolean, exp.Identifier)
+
+
+def _splice_parts(tree: exp.Expression, values: Mapping[str, Value]) -> exp.Expression:
+    """Replace every column ``__slot__.name`` whose slot holds a :class:`Part` by the part's
+    expression ``name`` (parts may use parts: repeated until none is left)."""
+    for _ in range(8):
+        targets = []
+        for col in tree.find_all(exp.Column):
+            table = col.args.get("table")
+            key = _placeholder_name(table) if isinstance(table, exp.Identifier) else None
+            if key is not None and isinstance(values.get(key), Part):
+                targets.append((col, str(values[key])))
+        if not targets:
+            return tree
+        for col, part in targets:
+            exprs = part_expressions(part)
+            if col.name not in exprs:
+                raise TemplateError(f"part {part} has no expression {col.name}",
+                                    file=str(sql_dir() / "parts" / f"{part}.sql"))
+            new = exprs[col.name].copy()
+            if not isinstance(new, _ATOMS) and isinstance(
+                    col.parent, exp.Binary | exp.Unary | exp.Between | exp.Is):
+                new = exp.Paren(this=new)
+            if col is tree:
+                return new
+            col.replace(new)
+    raise TemplateError("parts nest too deep (a part uses itself?)")
+
+
+def part_placeholders(name: str) -> frozenset[str]:
+    """The placeholders a part's expressions use."""
+    return load(f"parts/{name}.sql").placeholders
+
+
 def _fill(tree: exp.Expression, values: Mapping[str, Value]) -> exp.Expression:
+    tree = _splice_parts(tree, values)
     # Collect first, then replace: replacing while walking would skip nodes.
     targets = [n for n in tree.find_all(exp.Identifier) if _placeholder_name(n)]
     for ident in targets:
@@ -141,6 +207,8 @@ def _fill(tree: exp.Expression, values: Mapping[str, Value]) -> exp.Expression:
         holder: exp.Expression = ident
         if isinstance(ident.parent, exp.Column) and ident.arg_key == "this":
             holder = ident.parent
+        if isinstance(value, Part):
+            raise TemplateError(f"part slot __{key}__ used other than as __{key}__.name")
         if value is None:
             # an optional value the fit leaves unset (written __name_or_null__, see views.plan)
             holder.replace(exp.Null())
