@@ -1,4 +1,4 @@
-"""Alerts (sql/views/alerts.sql, alerts_plain.sql) and ``trendledger watch``.
+"""Alerts (sql/views/alerts.sql) and ``trendledger watch``.
 
 Two stores: the bundled Bench 7 demo (48 cells, three knee cells, one glitching channel), whose
 alerts must name exactly the cells the scenario plants (demo_data.expected() is the source),

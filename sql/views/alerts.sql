@@ -15,8 +15,9 @@
 --   low_r2          the fit's r2 is below the fit's min_r2
 --   outliers        at least one row of the points view is flagged: the Bonferroni outlier test
 --                   on externally studentised residuals at the fit's alpha
---   slope_changed   the change view's difference_p is below alpha: the latest window's slope
---                   differs from the slope of all earlier data
+--   slope_changed   only when the fit has a change view (a window or window_x): the change
+--                   view's difference_p is below alpha, the latest window's slope differs from
+--                   the slope of all earlier data
 --   crossing_soon   only when the fit has a limit and a horizon: the fitted line reaches the
 --                   limit (cross_x, as in the crossing view, with the same conditions: a line
 --                   that meets the limit at or after the group's first x, whose slope is
@@ -86,7 +87,7 @@ reasons AS (
     SELECT __group__, 'slope_changed', 4,
         format('slope {:.3g} in the window from {} against {:.3g} before: p {:.2g} < {:g}',
             slope_recent, window_start, slope_before, difference_p, __alpha__)
-    FROM __change_view__
+    FROM __change_view_if_any__
     WHERE difference_p < __alpha__
     UNION ALL
     SELECT __group__, 'crossing_soon', 5,

@@ -30,7 +30,7 @@ KINDS: tuple[tuple[str, str, tuple[str, ...]], ...] = (
     ("change", "_change", ("change",)),
     ("break", "_break", ("break",)),
     ("crossing", "_crossing", ("crossing",)),
-    ("alerts", "_alerts", ("alerts", "alerts_plain")),
+    ("alerts", "_alerts", ("alerts",)),
     # moments.py: the same fit recomputed from every row in two passes (reference, benchmarks)
     ("full_moments", "_full_moments", ("moments_full",)),
     ("full", "_full", ("fit",)),
@@ -120,7 +120,7 @@ def _pick(fit: Fit, files: tuple[str, ...], values: dict[str, Any]) -> templates
             if isinstance(values.get(key), Part):
                 needed |= templates.part_placeholders(str(values[key]))
         if all(values.get(p) is not None for p in needed
-               if p != "view" and not p.endswith("_or_null")):
+               if p != "view" and not p.endswith(("_or_null", "_if_any"))):
             return tpl
     return None
 
@@ -157,6 +157,9 @@ def plan(spec: Spec, *, recompute: bool = False) -> list[Planned]:
                        for k, v in values.items()}
             # moments.py: a kind may take a placeholder's value from another one
             offered.update({k: offered[v] for k, v in KIND_VALUES.get(kind, {}).items()})
+            # __name_view_if_any__: a UNION branch reading a sibling the fit lacks is left out
+            offered.update({f"{k}_if_any": v for k, v in list(offered.items())
+                            if k.endswith("_view")})
             if recompute and kind == "moments":
                 full = _pick(fit, ("moments_full",), offered)
                 if full is None:

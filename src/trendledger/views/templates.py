@@ -9,6 +9,7 @@ template with sqlglot and replace those identifier nodes in the syntax tree:
   (SELECT list, GROUP BY, PARTITION BY, USING, ...),
 * a number becomes a numeric literal,
 * a :class:`Text` becomes a string literal (for example a date_trunc unit),
+* a placeholder ``__name_if_any__`` with no value leaves out the UNION branch it stands in,
 * a :class:`Part` names a file under ``sql/parts/`` holding named expressions: a column
   ``__slot__.name`` becomes that file's expression ``name``, itself filled with the same values
   (so a view states what it is made of, and a variant picks another part for the same slot).
@@ -195,8 +196,24 @@ def part_placeholders(name: str) -> frozenset[str]:
     return load(f"parts/{name}.sql").placeholders
 
 
+def _drop_branches(tree: exp.Expression, values: Mapping[str, Value]) -> exp.Expression:
+    """Leave out each UNION branch that reads ``__name_if_any__`` when ``name`` has no value
+    (for example the alert rows of a sibling view the fit does not have)."""
+    for ident in [n for n in tree.find_all(exp.Identifier) if _placeholder_name(n)]:
+        key = _placeholder_name(ident)
+        if ident.parent is None or not (key or "").endswith("_if_any") or values.get(key or ""):
+            continue
+        branch = ident.find_ancestor(exp.Select)
+        union = branch.parent if branch is not None else None
+        if not isinstance(union, exp.Union) or branch is None:
+            raise TemplateError(f"__{key}__ must stand in a branch of a UNION")
+        other = union.expression if branch is union.this else union.this
+        union.replace(other)
+    return tree
+
+
 def _fill(tree: exp.Expression, values: Mapping[str, Value]) -> exp.Expression:
-    tree = _splice_parts(tree, values)
+    tree = _splice_parts(_drop_branches(tree, values), values)
     # Collect first, then replace: replacing while walking would skip nodes.
     targets = [n for n in tree.find_all(exp.Identifier) if _placeholder_name(n)]
     for ident in targets:
@@ -207,6 +224,8 @@ def _fill(tree: exp.Expression, values: Mapping[str, Value]) -> exp.Expression:
         holder: exp.Expression = ident
         if isinstance(ident.parent, exp.Column) and ident.arg_key == "this":
             holder = ident.parent
+        if value is None and key.endswith("_if_any"):
+            continue  # its branch was left out; seen here only if it stood elsewhere
         if isinstance(value, Part):
             raise TemplateError(f"part slot __{key}__ used other than as __{key}__.name")
         if value is None:
