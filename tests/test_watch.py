@@ -61,7 +61,7 @@ def demo_alerts(demo_store: Path) -> pd.DataFrame:
 
 
 def test_demo_names_the_knee_cells_and_the_glitching_channel(demo_alerts: pd.DataFrame) -> None:
-    reasons = demo_alerts.groupby("unit")["reason"].apply(set)
+    reasons = demo_alerts.groupby("unit_label")["reason"].apply(set)
     for cell in KNEES:
         # the knee is a change of slope in the latest week (demo_data.expected()["knee"])
         assert "slope_changed" in reasons[cell], cell
@@ -82,11 +82,11 @@ def test_demo_outliers_are_exactly_the_glitch_readings(demo_store: Path) -> None
 
 def test_demo_alerts_name_no_other_cell(demo_alerts: pd.DataFrame) -> None:
     # demo_data.expected(): the knee cells and the glitching channel, and no steady cell
-    assert set(demo_alerts["unit"]) == {*KNEES, GLITCH}
+    assert set(demo_alerts["unit_label"]) == {*KNEES, GLITCH}
 
 
 def test_demo_alert_rows(demo_alerts: pd.DataFrame) -> None:
-    assert list(demo_alerts.columns) == ["fit", "unit", "cell", "reason", "severity", "detail",
+    assert list(demo_alerts.columns) == ["fit_name", "unit_label", "cell", "reason", "severity", "detail",
                                          "latest_x", "latest_date"]
     last = EXPECTED["last_cycle"]
     assert (demo_alerts["latest_x"] == last).all()
@@ -94,10 +94,10 @@ def test_demo_alert_rows(demo_alerts: pd.DataFrame) -> None:
     assert (pd.to_datetime(demo_alerts["latest_date"]) == pd.Timestamp(end)).all()
     assert set(demo_alerts["reason"]) <= set(SEVERITY)
     assert (demo_alerts["severity"] == demo_alerts["reason"].map(SEVERITY.index) + 1).all()
-    knee = demo_alerts[(demo_alerts["unit"] == KNEES[0])
+    knee = demo_alerts[(demo_alerts["unit_label"] == KNEES[0])
                        & (demo_alerts["reason"] == "slope_changed")]["detail"].iloc[0]
     assert knee.startswith("slope -0.00") and "in the window from 2026-05-25" in knee
-    glitch = demo_alerts[(demo_alerts["unit"] == GLITCH)
+    glitch = demo_alerts[(demo_alerts["unit_label"] == GLITCH)
                          & (demo_alerts["reason"] == "outliers")]["detail"].iloc[0]
     assert glitch.startswith("5 reading(s) flagged (Bonferroni, alpha 0.01) at x = ")
 
@@ -115,7 +115,7 @@ def test_demo_watch_cli(demo_store: Path) -> None:
     assert tl("watch", "--fail-on", "slope_changed", "--store", str(demo_store))[0] == 1
     code, out, _ = tl("watch", "--format", "json", "--store", str(demo_store))
     rows = json.loads(out)
-    assert {r["unit"] for r in rows} >= {*KNEES, GLITCH} and code == 1
+    assert {r["unit_label"] for r in rows} >= {*KNEES, GLITCH} and code == 1
     code, _, err = tl("watch", "--fail-on", "nothing", "--store", str(demo_store))
     assert code == 2 and "too_few_points" in err
 
@@ -210,10 +210,10 @@ def lab_store(tmp_path_factory: pytest.TempPathFactory) -> Path:
 def test_each_cell_trips_its_reason(lab_store: Path) -> None:
     with Ledger.open(lab_store, read_only=True) as led:
         got = led.watch("fade")
-    pairs = sorted(zip(got["unit"], got["reason"], strict=True))
+    pairs = sorted(zip(got["unit_label"], got["reason"], strict=True))
     assert pairs == [("few", "too_few_points"), ("past", "crossing_soon"),
                      ("soon", "crossing_soon")]
-    detail = dict(zip(got["unit"], got["detail"], strict=True))
+    detail = dict(zip(got["unit_label"], got["detail"], strict=True))
     # numpy: where the least-squares line of the cell meets 2.0
     rows = _cells()["soon"]
     b, a = np.polyfit([r[1] for r in rows], [r[2] for r in rows], 1)
@@ -227,7 +227,7 @@ def test_newest_unit_first(lab_store: Path) -> None:
     with Ledger.open(lab_store, read_only=True) as led:
         got = led.watch("fade")
     # few's only day is the first: it comes last; soon and past share the latest day and x
-    assert list(got["unit"]) == ["past", "soon", "few"]
+    assert list(got["unit_label"]) == ["past", "soon", "few"]
     assert pd.to_datetime(got["latest_date"]).is_monotonic_decreasing
 
 

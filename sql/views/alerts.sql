@@ -2,6 +2,8 @@
 -- slope_changed, crossing_soon), with a short detail and the group's latest x and date.
 
 -- Columns:
+--   fit_name        the fit's name (so the alerts of several fits can be stacked)
+--   unit_label      the group values as text joined by ' / ' (a NULL value written NULL)
 --   group columns   as in the fit view
 --   reason          one of the words below
 --   severity        1 too_few_points, 2 low_r2, 3 outliers, 4 slope_changed, 5 crossing_soon
@@ -104,6 +106,8 @@ reasons AS (
     WHERE cross_x >= x_min AND cross_x <= latest_x + CAST(__horizon_or_null__ AS DOUBLE)
 )
 SELECT
+    __fit_name__ AS fit_name,
+    concat_ws(' / ', r.__group_text__) AS unit_label,
     r.__group__,
     r.reason,
     CAST(r.severity AS INTEGER) AS severity,

@@ -16,6 +16,7 @@ from pathlib import Path
 from typing import Any
 
 from trendledger.errors import SpecError
+from trendledger.views import names
 
 FORMATS = ("csv", "tsv", "parquet", "jsonl")
 WINDOWS = ("day", "week", "month")
@@ -142,6 +143,17 @@ def _check_name(name: str, where: str, path: str | None) -> None:
         )
     if name.lower() in RESERVED:
         raise SpecError(f"{where}: {name!r} is used by the store itself; rename it", file=path)
+    if name.lower().startswith("tl_"):
+        raise SpecError(f"{where}: {name!r}: names starting with 'tl_' are reserved for the store's own "
+                        "tables and working columns; rename it", file=path)
+
+
+def _check_role(name: str, key: str, where: str, path: str | None) -> None:
+    """Refuse a column name that would collide inside the views (views.names says why)."""
+    why = names.clash(name, group=key == "group")
+    if why:
+        raise SpecError(f"{where}: {key} = {name!r} cannot be used: {why}; rename the column "
+                        "(for example with a suffix)", file=path)
 
 
 def template_fields(template: str) -> list[str]:
@@ -295,6 +307,8 @@ def _parse_fit(raw: Any, index: int, source: Source, path: str | None) -> Fit:
     group = tuple(column("group", g) for g in group_raw)
     if len(set(group)) != len(group):
         raise SpecError(f"{where}: group lists a column twice", file=path)
+    for key, col in (*(("group", g) for g in group), ("x", x), ("y", y)):
+        _check_role(col, key, where, path)
     if x in group or y in group:
         raise SpecError(f"{where}: x and y cannot also be group columns", file=path)
     if x == y:

@@ -44,7 +44,7 @@ if TYPE_CHECKING:
 CAUTION = ("Statistical projection, not a safety or release decision; follow your local "
            "standards and qualified review.")
 #: Name of the label column the report adds to every view it reads.
-LABEL = "_report_group"
+LABEL = "tl_report_group"  # the reserved prefix: no user column can take it
 #: Panels per image: more groups make several images rather than one giant one.
 PANELS_PER_IMAGE = 12
 DEFAULT_PAIR = ("slope", "r2")

@@ -78,6 +78,10 @@ def fit_values(spec: Spec, fit: Fit) -> dict[str, Any]:
     values: dict[str, Any] = {
         "source": "measurements",
         "group": list(fit.group),
+        # each group column as text, NULL written NULL: the parts of the unit's label
+        "group_text": [exp.func("coalesce", exp.cast(exp.column(g, quoted=True), "VARCHAR"),
+                                exp.Literal.string("NULL")) for g in fit.group],
+        "fit_name": Text(fit.name),
         "x": fit.x,
         "y": fit.y,
         "level": fit.level,

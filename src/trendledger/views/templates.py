@@ -43,7 +43,7 @@ class Part(str):
     part's expression ``expr`` (see :func:`part_expressions`)."""
 
 
-Value = str | float | int | Sequence[str] | None
+Value = str | float | int | Sequence[str] | Sequence[exp.Expression] | None
 
 
 def sql_dir() -> Path:
@@ -244,7 +244,8 @@ def _fill(tree: exp.Expression, values: Mapping[str, Value]) -> exp.Expression:
     return tree
 
 
-def _expand(holder: exp.Expression, ident: exp.Identifier, key: str, names: list[str]) -> None:
+def _expand(holder: exp.Expression, ident: exp.Identifier, key: str,
+            names: list[str] | list[exp.Expression]) -> None:
     """Splice several quoted identifiers where one placeholder stands in a list."""
     parent = holder.parent
     arg_key = str(holder.arg_key)
@@ -256,7 +257,15 @@ def _expand(holder: exp.Expression, ident: exp.Identifier, key: str, names: list
     table = holder.args.get("table") if isinstance(holder, exp.Column) else None
     new: list[exp.Expression] = []
     for name in names:
-        if isinstance(holder, exp.Column):
+        if isinstance(name, exp.Expression):
+            # an expression per name (see views.fit_values: group_text); its columns take
+            # the placeholder's table, so t.__group_text__ reads t's columns
+            item = name.copy()
+            for col in item.find_all(exp.Column):
+                if table is not None and not col.args.get("table"):
+                    col.set("table", table.copy())
+            new.append(item)
+        elif isinstance(holder, exp.Column):
             new.append(exp.column(name, table=table.copy() if table else None, quoted=True))
         else:
             new.append(exp.to_identifier(name, quoted=True))

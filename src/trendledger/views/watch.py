@@ -49,19 +49,11 @@ def _ident(name: str) -> str:
     return exp.to_identifier(name, quoted=True).sql(dialect="duckdb")
 
 
-def _unit(values: tuple[Any, ...]) -> str:
-    """The unit's label: its group values, joined by ' / ' (NULL shown as NULL)."""
-    parts = []
-    for v in values:
-        missing = v is None or v is pd.NA or (isinstance(v, float) and math.isnan(v))
-        parts.append("NULL" if missing else str(v))
-    return " / ".join(parts)
-
-
 def alerts(con: duckdb.DuckDBPyConnection, spec: Spec, name: str | None = None) -> pd.DataFrame:
     """Alerts of the fit ``name`` (every fit when None), one row per unit and reason.
 
-    Columns: ``fit``, ``unit`` (the group values as text), the group columns, then
+    Columns: those of the alerts views, ``fit_name``, ``unit_label`` (the group values as
+    text), the group columns, then
     ``reason``, ``severity``, ``detail``, ``latest_x``, ``latest_date``. Units come newest
     first (latest date, then latest x, descending), and within a unit the most severe
     reason first. A fit without an alerts view contributes nothing.
@@ -73,28 +65,23 @@ def alerts(con: duckdb.DuckDBPyConnection, spec: Spec, name: str | None = None) 
         if not view_columns(con, view):
             continue
         frame = con.execute(f"SELECT * FROM {_ident(view)}").df()
-        groups = list(fit.group)
-        frame.insert(0, "fit", fit.name)
-        frame.insert(1, "unit", [_unit(tuple(r)) for r in frame[groups].itertuples(index=False)]
-                     if len(frame) else pd.Series(dtype=object))
         frames.append(frame)
     if not frames:
-        return pd.DataFrame(columns=["fit", "unit", *ALERT_COLUMNS])
+        return pd.DataFrame(columns=["fit_name", "unit_label", *ALERT_COLUMNS])
     out = pd.concat(frames, ignore_index=True) if len(frames) > 1 else frames[0]
     if out.empty:
         return out
     # newest unit first: the unit's latest date (when the spec has one), then its latest x
-    out["_date"] = pd.to_datetime(out["latest_date"], errors="coerce")
-    key = out.groupby(["fit", "unit"], sort=False)
-    out["_unit_date"] = key["_date"].transform("max")
-    out["_unit_x"] = key["latest_x"].transform("max")
-    out = out.sort_values(
-        ["_unit_date", "_unit_x", "fit", "unit", "severity"],
-        ascending=[False, False, True, True, False],
-        na_position="last",
-        kind="stable",
-    )
-    return out.drop(columns=["_date", "_unit_date", "_unit_x"]).reset_index(drop=True)
+    # (sort keys kept aside, never added as columns: a group column may take any free name)
+    dates = pd.to_datetime(out["latest_date"], errors="coerce")
+    key = [out["fit_name"], out["unit_label"]]
+    unit_date = dates.groupby(key, sort=False).transform("max")
+    unit_x = out["latest_x"].groupby(key, sort=False).transform("max")
+    order = pd.DataFrame({"d": unit_date, "x": unit_x, "f": out["fit_name"],
+                          "u": out["unit_label"], "s": out["severity"]})
+    order = order.sort_values(["d", "x", "f", "u", "s"], ascending=[False, False, True, True, False],
+                              na_position="last", kind="stable")
+    return out.loc[order.index].reset_index(drop=True)
 
 
 def _number(value: Any) -> str:
@@ -119,12 +106,12 @@ def render(frame: pd.DataFrame) -> str:
     """The alerts grouped by unit, newest unit first, as plain text lines."""
     if frame.empty:
         return "no alerts\n"
-    several = frame["fit"].nunique() > 1
-    units = frame[["fit", "unit"]].drop_duplicates()
+    several = frame["fit_name"].nunique() > 1
+    units = frame[["fit_name", "unit_label"]].drop_duplicates()
     lines = [f"{len(frame)} alert(s) on {len(units)} unit(s)"
-             + ("" if several else f" (fit {frame['fit'].iloc[0]})")]
+             + ("" if several else f" (fit {frame['fit_name'].iloc[0]})")]
     width = max(len(str(r)) for r in frame["reason"])
-    for (fit, unit), rows in frame.groupby(["fit", "unit"], sort=False):
+    for (fit, unit), rows in frame.groupby(["fit_name", "unit_label"], sort=False):
         first = rows.iloc[0]
         parts = [_day(first["latest_date"])]
         if _number(first["latest_x"]):
