@@ -86,8 +86,8 @@ def test_demo_alerts_name_no_other_cell(demo_alerts: pd.DataFrame) -> None:
 
 
 def test_demo_alert_rows(demo_alerts: pd.DataFrame) -> None:
-    assert list(demo_alerts.columns) == ["fit_name", "unit_label", "cell", "reason", "severity", "detail",
-                                         "latest_x", "latest_date"]
+    assert list(demo_alerts.columns) == ["fit_name", "unit_label", "cell", "reason", "severity",
+                                         "detail", "latest_x", "latest_date"]
     last = EXPECTED["last_cycle"]
     assert (demo_alerts["latest_x"] == last).all()
     end = demo_data.DEFAULT_PLAN.date_of(demo_data.DEFAULT_PLAN.n_days - 1)

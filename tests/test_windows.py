@@ -1,5 +1,5 @@
-"""Trends over time: window fits (windows.sql with the window key parts), the slope change of the latest
-window (change.sql) and the Chow break test (break.sql, ``fits --break-at``).
+"""Trends over time: window fits (windows.sql, with a window key part), the slope change of the
+latest window (change.sql) and the Chow break test (break.sql, ``fits --break-at``).
 
 One store from real files: five weeks of four cycles a day for a few cells, read through the
 API and the CLI. References: numpy.polyfit on the same slices for the window fits, statsmodels

@@ -1,8 +1,7 @@
 """trendledger: daily instrument batches in one DuckDB store, per-unit linear trends in SQL."""
 
-__version__ = "0.1.0"
-
 from trendledger.ledger import Ledger  # noqa: E402
+from trendledger.version import __version__
 
 from .errors import (  # noqa: E402
     BusyError,

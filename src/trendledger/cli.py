@@ -9,11 +9,11 @@ from typing import Annotated
 
 import typer
 
-from trendledger import __version__
 from trendledger.errors import TrendledgerError
 from trendledger.ledger import DEFAULT_WAIT, Ledger, default_store
 from trendledger.query import output
 from trendledger.trace import Writer
+from trendledger.version import __version__
 
 app = typer.Typer(
     add_completion=False,

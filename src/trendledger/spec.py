@@ -144,8 +144,8 @@ def _check_name(name: str, where: str, path: str | None) -> None:
     if name.lower() in RESERVED:
         raise SpecError(f"{where}: {name!r} is used by the store itself; rename it", file=path)
     if name.lower().startswith("tl_"):
-        raise SpecError(f"{where}: {name!r}: names starting with 'tl_' are reserved for the store's own "
-                        "tables and working columns; rename it", file=path)
+        raise SpecError(f"{where}: {name!r}: names starting with 'tl_' are reserved for the "
+                        "store's own tables and working columns; rename it", file=path)
 
 
 def _check_role(name: str, key: str, where: str, path: str | None) -> None:

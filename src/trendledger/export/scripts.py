@@ -19,10 +19,10 @@ from typing import Any
 
 from sqlglot import exp
 
-from trendledger import __version__
 from trendledger.export import dialects, lowering
 from trendledger.export.layout import DATA, Column, ExportError, Layout, connection, layout
 from trendledger.trace import Writer
+from trendledger.version import __version__
 from trendledger.views.watch import CAUTION
 
 #: Layout version of an export folder; a different one is rewritten whole.

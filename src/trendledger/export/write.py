@@ -57,7 +57,6 @@ from urllib.parse import quote
 import duckdb
 from sqlglot import exp
 
-from trendledger import __version__
 from trendledger.errors import first_line
 from trendledger.export import dialects
 from trendledger.export.layout import DATA, Column, ExportError, Layout, connection, layout
@@ -74,6 +73,7 @@ from trendledger.export.scripts import (
 from trendledger.export.scripts import digest as script_digest
 from trendledger.store import db as store
 from trendledger.trace import Writer
+from trendledger.version import __version__
 
 __all__ = ["ExportError", "Script", "export", "load_commands", "split_script", "sql"]
 

@@ -25,21 +25,32 @@ from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
 from datetime import UTC, date, datetime
 from pathlib import Path
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, Protocol
 
 import duckdb
 import numpy as np
 import pandas as pd
 from sqlglot import exp
 
-from trendledger import __version__
 from trendledger.errors import TrendledgerError
-from trendledger.spec import Fit, did_you_mean
+from trendledger.spec import Fit, Spec, did_you_mean
+from trendledger.version import __version__
 from trendledger.views.read import view_columns
 
 if TYPE_CHECKING:
-    from trendledger.ledger import Ledger
     from trendledger.report.plots import Drawn
+
+
+class Store(Protocol):
+    """What the report reads of an open store (a Ledger has it): this module never imports
+    the Ledger, so imports point one way only."""
+
+    path: Path
+    con: duckdb.DuckDBPyConnection
+    spec: Spec
+
+    @property
+    def info(self) -> dict[str, str]: ...
 
 CAUTION = ("Statistical projection, not a safety or release decision; follow your local "
            "standards and qualified review.")
@@ -564,7 +575,7 @@ def _subtitle(reasons: dict[str, list[str]], name: str) -> str:
 
 
 def build(
-    led: Ledger,
+    led: Store,
     out: str | Path,
     *,
     name: str | None = None,
@@ -852,7 +863,7 @@ def _fate(r: Any) -> str:
     return "" if _is_missing(r.message) else str(r.message)
 
 
-def _head(led: Ledger, fit: Fit, fits: pd.DataFrame, alerting: list[str], batches: pd.DataFrame,
+def _head(led: Store, fit: Fit, fits: pd.DataFrame, alerting: list[str], batches: pd.DataFrame,
           since: date | None) -> str:
     made = datetime.now(UTC).strftime("%Y-%m-%d %H:%M UTC")
     last = batches["started_at"].max() if len(batches) else None
@@ -876,7 +887,7 @@ def _head(led: Ledger, fit: Fit, fits: pd.DataFrame, alerting: list[str], batche
             f'<dl class="facts">{cells}</dl>')
 
 
-def _footer(led: Ledger, views: Views, batches: pd.DataFrame) -> str:
+def _footer(led: Store, views: Views, batches: pd.DataFrame) -> str:
     info = led.info
     used = [views.name(k) for k in KINDS if views.has(k)]
     hashes = dict(led.con.execute("SELECT name, sql_hash FROM tl_views").fetchall())

@@ -16,12 +16,12 @@ from typing import Any
 import duckdb
 from sqlglot import exp
 
-from trendledger import __version__
 from trendledger.errors import BusyError, StoreError, first_line
 from trendledger.spec import Spec
 from trendledger.spec import parse as parse_spec
 from trendledger.trace import Writer
 from trendledger.trace import wrap as trace_wrap
+from trendledger.version import __version__
 from trendledger.views import templates
 
 #: The store's own tables are built by sql/schema/NNN_*.sql, applied in order;

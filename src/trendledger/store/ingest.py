@@ -29,11 +29,11 @@ import duckdb
 import pandas as pd
 from sqlglot import exp
 
-from trendledger import __version__
 from trendledger.errors import InputError, StoreError
 from trendledger.spec import FLOATS, NUMERIC, Spec
 from trendledger.store.db import first_row, utcnow
 from trendledger.store.paths import PathTemplate, expand, relative_to_root
+from trendledger.version import __version__
 from trendledger.views import moments
 
 Progress = Callable[[str, int, int], None]

@@ -15,26 +15,11 @@ import duckdb
 from sqlglot import exp
 
 from trendledger.spec import Fit, Spec
-from trendledger.views import templates
-from trendledger.views.templates import Part, Text
+from trendledger.views import moments, templates
+from trendledger.views.templates import Part
+from trendledger.views.values import KINDS, fit_values, template_for
 
-#: View kinds per fit, in install order (later ones may read earlier ones).
-#: Each is ``sql/views/<file>.sql``; a kind whose file is absent is not installed.
-KINDS: tuple[tuple[str, str, tuple[str, ...]], ...] = (
-    # (kind, view name suffix, candidate template files under sql/views/): the first
-    # candidate that exists and whose placeholders the fit can all fill is used.
-    ("moments", "_moments", ("moments",)),
-    ("fit", "", ("fit_stored",)),  # moments.py: fit.sql's rows, stored and kept up to date
-    ("windows", "_windows", ("windows",)),
-    ("points", "_points", ("points",)),
-    ("change", "_change", ("change",)),
-    ("break", "_break", ("break",)),
-    ("crossing", "_crossing", ("crossing",)),
-    ("alerts", "_alerts", ("alerts",)),
-    # moments.py: the same fit recomputed from every row in two passes (reference, benchmarks)
-    ("full_moments", "_full_moments", ("moments_full",)),
-    ("full", "_full", ("fit",)),
-)
+__all__ = ["KINDS", "fit_values", "template_for", "plan", "install", "listing", "Planned"]
 
 #: moments.py: placeholder values a kind takes from another (the full fit renders fit.sql over
 #: the full moments view instead of the stored moments).
@@ -66,51 +51,6 @@ class Planned:
     @property
     def digest(self) -> str:
         return hashlib.sha256("\n;\n".join(self.statements).encode()).hexdigest()
-
-
-def fit_values(spec: Spec, fit: Fit) -> dict[str, Any]:
-    """Placeholder values a fit offers to its templates; None means 'not configured'.
-
-    Names of views of the same fit are offered too (``__fit_view__``,
-    ``__moments_view__`` ...), so a template can read its siblings.
-    """
-    dates = [n for n, t in spec.all_columns.items() if t.startswith(("DATE", "TIMESTAMP"))]
-    values: dict[str, Any] = {
-        "source": "measurements",
-        "group": list(fit.group),
-        # each group column as text, NULL written NULL: the parts of the unit's label
-        "group_text": [exp.func("coalesce", exp.cast(exp.column(g, quoted=True), "VARCHAR"),
-                                exp.Literal.string("NULL")) for g in fit.group],
-        "fit_name": Text(fit.name),
-        "x": fit.x,
-        "y": fit.y,
-        "level": fit.level,
-        "limit": fit.limit,
-        "horizon": fit.horizon,
-        "window": Text(fit.window) if fit.window else None,
-        "window_field": dates[0] if dates else None,
-        "window_x": fit.window_x,
-        # the window key part (sql/parts/): calendar windows of the date field, or spans of x
-        "window_key": (Part("window_calendar") if fit.window
-                       else Part("window_span") if fit.window_x else None),
-        "min_r2": fit.min_r2,
-        "alpha": fit.alpha,
-        # the same numbers as text for notes, formatted here so every engine prints them alike
-        "alpha_text": Text(f"{fit.alpha:g}"),
-        "level_text": Text(f"{fit.level:g}"),
-    }
-    for kind, suffix, _ in KINDS:
-        values[f"{kind}_view"] = fit.view + suffix
-    values["moments_table"] = f"tl_moments_{fit.name}"  # moments.py: the stored sums
-    values["fit_table"] = f"tl_fit_{fit.name}"  # moments.py: the stored statistics
-    return values
-
-
-def template_for(fit: Fit, file: str) -> str:
-    """``sql/views/<file>.sql``, or its ``<file>_origin.sql`` twin for a through-origin fit."""
-    if fit.through_origin and (templates.sql_dir() / f"views/{file}_origin.sql").is_file():
-        return f"views/{file}_origin.sql"
-    return f"views/{file}.sql"
 
 
 def _pick(fit: Fit, files: tuple[str, ...], values: dict[str, Any]) -> templates.Template | None:
@@ -188,8 +128,6 @@ def plan(spec: Spec, *, recompute: bool = False) -> list[Planned]:
 
 def install(con: duckdb.DuckDBPyConnection, spec: Spec) -> int:
     """Create or refresh macros and views inside the caller's transaction; returns how many."""
-    from trendledger.views import moments
-
     have = {
         name: digest for name, digest in con.execute("SELECT name, sql_hash FROM tl_views")
         .fetchall()

@@ -38,8 +38,8 @@ import sqlglot
 from sqlglot import exp
 
 from trendledger.spec import Fit, Spec
-from trendledger.views import install as views
 from trendledger.views import templates
+from trendledger.views import values as views
 
 #: The temporary table holding the two-pass sums of whatever rows are being summed.
 BATCH = "tl_mbatch"

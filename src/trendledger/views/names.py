@@ -45,10 +45,9 @@ def working_columns() -> frozenset[str]:
     for folder in FOLDERS:
         for tpl in templates.load_dir(folder):
             for stmt in tpl.statements:
-                for node in stmt.find_all(exp.Alias):
-                    found.add(node.alias.lower())
-                for node in stmt.find_all(exp.Lambda):
-                    found.update(str(v.name).lower() for v in node.expressions)
+                found.update(a.alias.lower() for a in stmt.find_all(exp.Alias))
+                for fn in stmt.find_all(exp.Lambda):
+                    found.update(str(v.name).lower() for v in fn.expressions)
     return frozenset(n for n in found if n and not templates.PLACEHOLDER.match(n))
 
 

@@ -240,7 +240,7 @@ def _fill(tree: exp.Expression, values: Mapping[str, Value]) -> exp.Expression:
         elif isinstance(value, int | float):
             holder.replace(exp.Literal.number(repr(value)))
         else:
-            _expand(holder, ident, key, list(value))
+            _expand(holder, ident, key, list(value))  # type: ignore[arg-type]
     return tree
 
 

@@ -79,7 +79,8 @@ def alerts(con: duckdb.DuckDBPyConnection, spec: Spec, name: str | None = None) 
     unit_x = out["latest_x"].groupby(key, sort=False).transform("max")
     order = pd.DataFrame({"d": unit_date, "x": unit_x, "f": out["fit_name"],
                           "u": out["unit_label"], "s": out["severity"]})
-    order = order.sort_values(["d", "x", "f", "u", "s"], ascending=[False, False, True, True, False],
+    order = order.sort_values(["d", "x", "f", "u", "s"],
+                              ascending=[False, False, True, True, False],
                               na_position="last", kind="stable")
     return out.loc[order.index].reset_index(drop=True)
 
