@@ -560,4 +560,5 @@ def test_plain_reasons() -> None:
     assert "r2" in plain_reason("low_r2")
     assert "limit" in plain_reason("crossing_within_horizon")
     assert plain_reason("something_new") == "something new"
-    assert LABEL.startswith("_")
+    # the label column takes the reserved prefix, which the spec refuses for user columns
+    assert LABEL.startswith("tl_")
