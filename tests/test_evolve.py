@@ -8,6 +8,7 @@ import pytest
 from trendledger import Ledger, SpecError
 from trendledger.spec import load as load_spec
 from trendledger.store import db as store
+from trendledger.store import publish
 from trendledger.views import templates
 
 from .conftest import SPEC, Lab
@@ -92,8 +93,12 @@ def test_store_of_an_earlier_version_is_upgraded_in_place(lab: Lab) -> None:
 
 def test_newer_store_is_refused(lab: Lab) -> None:
     lab.init().close()
-    con = duckdb.connect(str(lab.store))
-    con.execute("UPDATE tl_meta SET value = '99' WHERE key = 'schema_version'")
-    con.close()
+    # as a newer version would leave it: both the published copy and the writer's copy
+    for copy in (lab.store, publish.Layout.of(lab.store).writer):
+        con = duckdb.connect(str(copy))
+        con.execute("UPDATE tl_meta SET value = '99' WHERE key = 'schema_version'")
+        con.close()
     with pytest.raises(Exception, match="newer than this tool"):
         Ledger.open(lab.store)
+    with pytest.raises(Exception, match="newer than this tool"):
+        Ledger.open(lab.store, read_only=True)

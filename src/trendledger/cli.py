@@ -198,6 +198,14 @@ def check(
             typer.echo(f"  identical content: {', '.join(group)}")
         for p in report.duplicate_rows:
             typer.echo(f"  repeated rows: {p}")
+        if report.copies_differ:
+            typer.echo("published copy and writer's copy differ:")
+            for p in report.copies_differ:
+                typer.echo(f"  {p}")
+        elif report.copies_compared:
+            typer.echo(f"published copy and writer's copy agree: {report.copies_note}")
+        else:
+            typer.echo(f"published copy and writer's copy: {report.copies_note}")
     if not report.ok:
         raise typer.Exit(1)
 

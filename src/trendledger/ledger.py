@@ -2,8 +2,10 @@
 
 from __future__ import annotations
 
+import contextlib
 import os
 import sys
+from collections.abc import Iterator
 from datetime import date
 from pathlib import Path
 from types import TracebackType
@@ -12,11 +14,11 @@ from typing import Any
 import duckdb
 import pandas as pd
 
-from trendledger.errors import StoreError, TrendledgerError, first_line
+from trendledger.errors import BusyError, StoreError, TrendledgerError, first_line
 from trendledger.spec import Spec
 from trendledger.spec import load as load_spec
 from trendledger.store import db as store
-from trendledger.store import evolve, ingest, lineage
+from trendledger.store import evolve, ingest, lineage, publish
 from trendledger.store.evolve import SpecChange
 from trendledger.store.ingest import BatchSummary, Progress
 from trendledger.store.lineage import CheckReport
@@ -43,10 +45,14 @@ class Ledger:
     ...     led.fits("fade").head()
     """
 
-    def __init__(self, path: Path, con: duckdb.DuckDBPyConnection, read_only: bool) -> None:
+    def __init__(self, path: Path, con: duckdb.DuckDBPyConnection, read_only: bool,
+                 lock: publish.WriterLock | None = None) -> None:
         self.path = path
         self.con = con
         self.read_only = read_only
+        self._lock = lock
+        #: What the last publish did (how the copy was made, bytes, seconds).
+        self.last_publish: publish.Published | None = None
         self._meta = store.meta(con)
         self.spec: Spec = store.stored_spec(con)
 
@@ -61,10 +67,28 @@ class Ledger:
         spec = load_spec(spec_file)
         root = spec_file.resolve().parent
         target = Path(store_path) if store_path else root / store.DEFAULT_NAME
-        store.create(target, spec, root=root, force=force, trace=trace)
-        led = cls.open(target, trace=trace)
+        layout = publish.Layout.of(target)
+        if layout.exists() and not force:
+            raise StoreError("a store already exists here", file=str(target),
+                             hint="pass --force to replace it (its data is lost)")
+        target.parent.mkdir(parents=True, exist_ok=True)
+        lock = publish.WriterLock.acquire(layout, wait=DEFAULT_WAIT, command=_command("init"))
+        assert lock is not None
+        try:
+            for old in layout.files():
+                if old != layout.lock:
+                    old.unlink(missing_ok=True)
+            lock.mark("writing")
+            store.create(target, spec, root=root, trace=trace)
+            con = store.connect(layout.writer, read_only=False, trace=trace)
+        except BaseException:
+            lock.release()
+            store.discard(target)
+            raise
+        led = cls(target, con, False, lock)
         try:
             led._install_views()
+            led._publish(None)
         except BaseException as err:  # half a store would block the next init
             led.close()
             store.discard(target)
@@ -84,12 +108,41 @@ class Ledger:
         ``trace`` (e.g. ``print``) receives every SQL statement with its parameters.
         """
         target = Path(path)
-        con = store.connect(target, read_only=read_only, wait=wait,
-                            config=dict(LOCKED) if read_only else None, trace=trace)
-        return cls(target, con, read_only)
+        if read_only:
+            # A killed writer may have left its last commit unpublished: publish it first.
+            publish.settle(target)
+            try:
+                con = store.connect(target, read_only=True, wait=0,
+                                    config=dict(LOCKED), trace=trace)
+            except BusyError:
+                # Another program holds the published copy read-write; unless a writer is
+                # running, a fresh copy at the path lets readers in at once.
+                publish.republish(target)
+                con = store.connect(target, read_only=True, wait=wait,
+                                    config=dict(LOCKED), trace=trace)
+            return cls(target, con, True)
+        layout = publish.Layout.of(target)
+        if not layout.exists():
+            store.connect(target, read_only=True)  # raises the usual "no store here"
+        lock = publish.WriterLock.acquire(layout, wait=wait, command=_command())
+        assert lock is not None
+        try:
+            if not publish.convert(lock):  # a store of an earlier version gets its copy
+                publish.finish_due_publish(lock)
+            con = store.connect(layout.writer, read_only=False, wait=wait, trace=trace,
+                                busy="the writer's copy of the store is held by another "
+                                     "program; close it there, then retry")
+        except BaseException:
+            lock.release()
+            raise
+        return cls(target, con, False, lock)
 
     def close(self) -> None:
-        self.con.close()
+        try:
+            self.con.close()
+        finally:
+            if self._lock is not None:
+                self._lock.release()
 
     def __enter__(self) -> Ledger:
         return self
@@ -114,8 +167,27 @@ class Ledger:
         return {k: v for k, v in self._meta.items() if k != "spec"}
 
     def _writable(self) -> None:
-        if self.read_only:
+        if self.read_only or self._lock is None:
             raise StoreError("the store was opened read-only", file=str(self.path))
+
+    @contextlib.contextmanager
+    def _changing(self, progress: Progress | None = None) -> Iterator[None]:
+        """Around one change of the writer's copy: mark a publish as due, and publish the
+        change when it is done. Our own errors leave the store as it was (nothing was
+        committed), so no publish is due after them; anything else leaves it due."""
+        self._writable()
+        assert self._lock is not None
+        self._lock.mark("writing")
+        try:
+            yield
+        except TrendledgerError:
+            self._lock.mark("published")
+            raise
+        self._publish(progress)
+
+    def _publish(self, progress: Progress | None) -> None:
+        assert self._lock is not None
+        self.last_publish = publish.publish(self.con, self._lock, progress)
 
     def _install_views(self) -> int:
         self._writable()
@@ -140,12 +212,13 @@ class Ledger:
         command: str | None = None,
     ) -> BatchSummary:
         """Append files (default: every file the spec's template matches) as one batch."""
-        self._writable()
-        return ingest.append(
-            self.con, self.spec, self.root, patterns,
-            replace=replace, skip_bad=skip_bad, rehash=rehash, progress=progress,
-            command=command if command is not None else " ".join(sys.argv),
-        )
+        with self._changing(progress):
+            summary = ingest.append(
+                self.con, self.spec, self.root, patterns,
+                replace=replace, skip_bad=skip_bad, rehash=rehash, progress=progress,
+                command=command if command is not None else " ".join(sys.argv),
+            )
+        return summary
 
     def lineage(
         self, files: bool = False, *, batch: int | None = None, path: str | None = None
@@ -159,16 +232,22 @@ class Ledger:
         self, *, why: str, batch: int | None = None, file: str | None = None
     ) -> dict[str, int]:
         """Remove a batch's or a file's rows; the lineage keeps them, marked retracted."""
-        self._writable()
-        return lineage.retract(self.con, why=why, batch=batch, path=file)
+        with self._changing():
+            done = lineage.retract(self.con, why=why, batch=batch, path=file)
+        return done
 
     def check(self, root: str | Path | None = None) -> CheckReport:
-        """Re-hash loaded files on disk and recount rows; see :class:`CheckReport`."""
+        """Re-hash loaded files on disk, recount rows, and compare the published copy with
+        the writer's; see :class:`CheckReport`."""
         folder = Path(root) if root else self.root
         if not folder.is_dir():  # every file would read as missing, and check would pass
             raise TrendledgerError("the root folder does not exist", file=str(folder),
                                    hint="pass the folder the data moved to with --root")
-        return lineage.check(self.con, folder)
+        report = lineage.check(self.con, folder)
+        layout = publish.Layout.of(self.path)
+        other = layout.writer if self.read_only else layout.published
+        lineage.compare_copies(self.con, other, report)
+        return report
 
     def fits(
         self,
@@ -206,7 +285,8 @@ class Ledger:
         """Switch the store to a changed spec: new columns and fits; nothing stored is lost."""
         self._writable()
         new = load_spec(Path(spec_path))
-        change = evolve.apply(self.con, self.spec, new, note=note)
+        with self._changing():
+            change = evolve.apply(self.con, self.spec, new, note=note)
         self.spec = new
         self._meta = store.meta(self.con)
         return change
@@ -249,6 +329,12 @@ class Ledger:
         from trendledger.export.write import sql
 
         return sql(self, dialect, location).text
+
+
+def _command(fallback: str = "") -> str:
+    """The command line, recorded with the writer's lock so a busy message can name it."""
+    words = [os.path.basename(sys.argv[0])] + sys.argv[1:] if sys.argv and sys.argv[0] else []
+    return " ".join(words) or fallback
 
 
 def default_store(store_option: str | None) -> Path:

@@ -1,8 +1,11 @@
-"""Open, create and describe the DuckDB file that holds everything.
+"""Open, create and describe the DuckDB files that hold everything.
 
 One writing process or many reading processes may hold a DuckDB file at a
-time; DuckDB enforces that with a file lock. We turn its lock error into
-:class:`BusyError` and optionally wait for the lock to be released.
+time; DuckDB enforces that with a file lock. Writers therefore work on a
+private copy and publish it at the store's path (:mod:`trendledger.store.publish`),
+so readers and writers never meet on one file. A lock DuckDB still reports
+(a foreign client holding a file read-write) becomes :class:`BusyError`, after
+waiting for it to be released.
 """
 
 from __future__ import annotations
@@ -19,6 +22,7 @@ from sqlglot import exp
 from trendledger.errors import BusyError, StoreError, first_line
 from trendledger.spec import Spec
 from trendledger.spec import parse as parse_spec
+from trendledger.store.publish import Layout
 from trendledger.trace import Writer
 from trendledger.trace import wrap as trace_wrap
 from trendledger.version import __version__
@@ -51,8 +55,10 @@ def connect(
     wait: float = 0.0,
     config: dict[str, Any] | None = None,
     trace: Writer | None = None,
+    busy: str | None = None,
 ) -> duckdb.DuckDBPyConnection:
-    """Open an existing store, waiting up to ``wait`` seconds for another process's lock.
+    """Open an existing DuckDB file of a store, waiting up to ``wait`` seconds for another
+    process's lock; ``busy`` is what the error says then.
 
     ``trace`` receives every statement run on the connection (see :mod:`trendledger.trace`).
     """
@@ -79,10 +85,7 @@ def connect(
                 raise StoreError(f"cannot open the store: {first_line(err)}",
                                  file=str(path)) from err
             if time.monotonic() >= deadline:
-                raise BusyError(
-                    "the store is being written by another process; retry or pass --wait SECONDS",
-                    file=str(path),
-                ) from err
+                raise BusyError(busy or held_message(err), file=str(path)) from err
             time.sleep(delay)
             delay = min(delay * 2, 0.5)
             continue
@@ -109,6 +112,17 @@ def connect(
                 con.close()
                 raise
         return con
+
+
+def held_message(err: Exception) -> str:
+    """The busy message for a file another program holds read-write (trendledger's own
+    writers never hold the file people read), naming that program as DuckDB does."""
+    holder = ""
+    text = str(err)
+    if "held in " in text:
+        holder = " (" + text.split("held in ", 1)[1].splitlines()[0].strip().rstrip(".") + ")"
+    return (f"the file is open read-write in another program{holder}; close it there or "
+            "open it read-only (duckdb -readonly), then retry or pass --wait SECONDS")
 
 
 def first_row(
@@ -174,23 +188,15 @@ def measurements_ddl(spec: Spec) -> str:
     return create.sql(dialect="duckdb")
 
 
-def create(path: Path, spec: Spec, *, root: Path, force: bool = False,
-           trace: Writer | None = None) -> None:
-    """Create a new store for ``spec``; refuse to overwrite unless ``force``."""
-    if path.exists():
-        if not force:
-            raise StoreError("a store already exists here", file=str(path),
-                             hint="pass --force to replace it (its data is lost)")
-        path.unlink()
-        wal = path.with_name(path.name + ".wal")
-        if wal.exists():
-            wal.unlink()
-    path.parent.mkdir(parents=True, exist_ok=True)
+def create(store_path: Path, spec: Spec, *, root: Path, trace: Writer | None = None) -> None:
+    """Create the writer's copy of a new store for ``spec`` (the caller holds the writer's
+    lock, has removed an old store and publishes the new one)."""
+    path = Layout.of(store_path).writer
     try:
         con = trace_wrap(duckdb.connect(
             str(path), config={"storage_compatibility_version": STORAGE_VERSION}), trace)
     except duckdb.Error as err:
-        discard(path)  # e.g. a full disk: a 0-byte file would read as "already exists"
+        discard(store_path)  # e.g. a full disk: a 0-byte file would read as "already exists"
         raise StoreError(f"cannot create the store: {first_line(err)}", file=str(path)) from err
     try:
         con.execute("BEGIN")
@@ -211,14 +217,15 @@ def create(path: Path, spec: Spec, *, root: Path, force: bool = False,
         migrate(con, 1)
     except BaseException:
         con.close()
-        discard(path)
+        discard(store_path)
         raise
     con.close()
 
 
 def discard(path: Path) -> None:
-    """Delete a store this process has just created and failed to finish, with its WAL."""
-    for leftover in (path, path.with_name(path.name + ".wal")):
+    """Delete a store this process has just created and failed to finish: both copies,
+    their logs and the lock file."""
+    for leftover in Layout.of(path).files():
         leftover.unlink(missing_ok=True)
 
 

@@ -9,8 +9,9 @@ from typing import Any
 
 import duckdb
 import pandas as pd
+from sqlglot import exp
 
-from trendledger.errors import InputError, StoreError
+from trendledger.errors import InputError, StoreError, first_line
 from trendledger.store.db import first_row, stored_spec, utcnow
 from trendledger.store.ingest import cannot_write, database_path, rollback_quietly
 from trendledger.views import moments
@@ -115,10 +116,15 @@ class CheckReport:
     count_mismatch: list[str] = field(default_factory=list)
     same_content: list[list[str]] = field(default_factory=list)
     duplicate_rows: list[str] = field(default_factory=list)
+    #: The published copy against the writer's copy: how they differ (nothing when equal),
+    #: and whether they could be compared at all (not while a write is running).
+    copies_differ: list[str] = field(default_factory=list)
+    copies_compared: bool = False
+    copies_note: str = ""
 
     @property
     def ok(self) -> bool:
-        return not self.changed and not self.count_mismatch
+        return not self.changed and not self.count_mismatch and not self.copies_differ
 
     def to_dict(self) -> dict[str, Any]:
         return {**asdict(self), "ok": self.ok}
@@ -176,3 +182,48 @@ def check(con: duckdb.DuckDBPyConnection, root: Path) -> CheckReport:
     ).fetchall():
         report.duplicate_rows.append(f"{path}: {n} repeated row(s)")
     return report
+
+
+# -- the published copy against the writer's copy ---------------------------------------------
+
+#: What two copies of one store must agree on: every batch, the lineage by status, and the
+#: rows (count and an order-free sum of row hashes). ``{db}`` is our own catalog alias.
+_FINGERPRINT = {
+    "batches": "SELECT batch_id, status, files, rows FROM {db}ingest_batches ORDER BY batch_id",
+    "files": "SELECT status, count(*), coalesce(sum(rows), 0) FROM {db}ingest_files "
+             "GROUP BY status ORDER BY status",
+    "rows": "SELECT count(*), coalesce(sum(hash(m)::HUGEINT), 0) FROM {db}measurements AS m",
+}
+
+
+def _fingerprint(con: duckdb.DuckDBPyConnection, db: str = "") -> dict[str, list[tuple]]:
+    return {what: con.execute(sql.format(db=db)).fetchall() for what, sql in _FINGERPRINT.items()}
+
+
+def compare_copies(con: duckdb.DuckDBPyConnection, other: Path,
+                   report: CheckReport) -> None:
+    """Compare the copy open on ``con`` with the store file ``other`` (the other copy), read
+    through a separate in-memory connection; fill the report's ``copies_*`` fields."""
+    if not other.exists():
+        report.copies_note = f"{other.name} does not exist yet (made by the next write)"
+        return
+    side = duckdb.connect()
+    try:
+        literal = exp.Literal.string(str(other)).sql(dialect="duckdb")
+        try:
+            side.execute(f"ATTACH {literal} AS other_copy (READ_ONLY)")
+        except duckdb.Error as err:
+            report.copies_note = ("not compared: a write is running"
+                                  if "lock" in str(err).lower() else
+                                  f"not compared: {first_line(err)}")
+            return
+        mine, theirs = _fingerprint(con), _fingerprint(side, "other_copy.")
+    finally:
+        side.close()
+    report.copies_compared = True
+    words = {"batches": "batches", "files": "lineage by status", "rows": "rows"}
+    for what, label in words.items():
+        if mine[what] != theirs[what]:
+            report.copies_differ.append(f"{label}: {mine[what][:3]} against {theirs[what][:3]}")
+    rows = mine["rows"][0][0] if mine["rows"] else 0
+    report.copies_note = f"{len(mine['batches'])} batch(es), {rows} row(s)"
