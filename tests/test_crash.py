@@ -5,7 +5,11 @@ killed with SIGKILL: by its own progress callback at chosen stages, by a timer
 that fires around COMMIT, or by this process after a random delay. Afterwards
 the store must open, ``trendledger check`` must pass, the interrupted batch must
 be wholly present or wholly absent, and appending again must land every row once.
-A full disk and a read-only folder must give one clear error and change nothing.
+The publish that follows every commit (copy the writer's copy, flush it, rename
+it over the store's path) is killed at each of its steps too: the published
+file must open as it was or as it became, never half, and the next command
+must finish the publish. A full disk and a read-only folder must give one
+clear error and change nothing.
 """
 
 from __future__ import annotations
@@ -20,9 +24,11 @@ import textwrap
 import time
 from pathlib import Path
 
+import duckdb
 import pytest
 
 from trendledger import Ledger
+from trendledger.store.publish import Layout
 
 from .audit import TRENDLEDGER, attack_rounds, audit, cli, one_clean_line, tally
 from .conftest import Lab
@@ -69,8 +75,8 @@ def _big_paths() -> list[str]:
 
 
 @pytest.fixture(scope="module")
-def crash_lab(tmp_path_factory: pytest.TempPathFactory) -> tuple[Lab, bytes]:
-    """A lab with one small day loaded and one big day waiting; the clean store's bytes."""
+def crash_lab(tmp_path_factory: pytest.TempPathFactory) -> tuple[Lab, dict[str, bytes]]:
+    """A lab with one small day loaded and one big day waiting; the clean store's files."""
     lab = Lab(tmp_path_factory.mktemp("crash") / "lab")
     lab.day("2026-03-02", {f"c{i:04d}": [(1, 3.0), (2, 2.99), (3, 2.98)] for i in range(5)})
     with lab.init() as led:
@@ -78,17 +84,37 @@ def crash_lab(tmp_path_factory: pytest.TempPathFactory) -> tuple[Lab, bytes]:
     for i in range(BIG):
         lab.write(f"incoming/{BIG_DAY}/c{i:04d}.csv",
                   f"cycle,capacity_ah\n10,{2.9 + i * 1e-6!r}\n11,{2.89 + i * 1e-6!r}\n")
-    assert not lab.store.with_name(lab.store.name + ".wal").exists()
-    return lab, lab.store.read_bytes()
+    layout = Layout.of(lab.store)
+    assert not layout.wal.exists() and not layout.writer_wal.exists()
+    return lab, {"": lab.store.read_bytes(), ".writer": layout.writer.read_bytes()}
 
 
-def _fresh_store(crash_lab: tuple[Lab, bytes], tmp_path: Path) -> Path:
+def _fresh_store(crash_lab: tuple[Lab, dict[str, bytes]], tmp_path: Path) -> Path:
     """A copy of the clean store (same spec folder, so it sees the same files)."""
     _, clean = crash_lab
     store = tmp_path / "copy.duckdb"
-    store.with_name(store.name + ".wal").unlink(missing_ok=True)  # a killed run's log
-    store.write_bytes(clean)
+    for leftover in Layout.of(store).files():  # a killed run's logs, lock and half copies
+        leftover.unlink(missing_ok=True)
+    for suffix, data in clean.items():
+        store.with_name(store.name + suffix).write_bytes(data)
     return store
+
+
+def _published_as_is(store: Path, more: int = 0) -> bool:
+    """Open the published file as any DuckDB client would, before trendledger touches it:
+    it must open, and hold the killed batch wholly (True) or not at all (False)."""
+    con = duckdb.connect(str(store), read_only=True)
+    try:
+        files, rows = con.execute(
+            "SELECT count(*), coalesce(sum(rows), 0) FROM ingest_files "
+            "WHERE status = 'loaded' AND path LIKE $day",
+            {"day": f"incoming/{BIG_DAY}/%"}).fetchall()[0]
+        (stored,) = con.execute("SELECT count(*) FROM measurements").fetchall()[0]
+    finally:
+        con.close()
+    assert (files, rows) in {(0, 0), (BIG, 2 * BIG)}, (files, rows)
+    assert stored == BASE_ROWS + rows + more  # ``more``: rows of later batches
+    return files == BIG
 
 
 def _assert_whole_then_complete(store: Path, lab: Lab, expect_present: bool | None) -> None:
@@ -127,10 +153,20 @@ KILL_POINTS = {
     "checkpoint-on-close": ("closing", 0, 0.001, True),
 }
 
+# The publish after the commit, at each step: (stage, count, published file shows the batch)
+PUBLISH_POINTS = {
+    "copy-begun": ("copy", 0, False),           # the temporary copy exists, nothing in it
+    "copy-first-mib": ("copy", 1, False),       # part of the file copied (or all of a small one)
+    "copied-not-flushed": ("publish", 1, False),
+    "flushed-not-renamed": ("publish", 2, False),
+    "renamed-not-recorded": ("publish", 3, True),  # the lock file still says "publish due"
+    "recorded": ("publish", 4, True),
+}
+
 
 @pytest.mark.slow
 @pytest.mark.parametrize("point", list(KILL_POINTS))
-def test_kill_at_a_chosen_point(crash_lab: tuple[Lab, bytes], tmp_path: Path, point: str) -> None:
+def test_kill_at_a_chosen_point(crash_lab: tuple[Lab, dict[str, bytes]], tmp_path: Path, point: str) -> None:
     lab, _ = crash_lab
     store = _fresh_store(crash_lab, tmp_path)
     stage, at, delay, present = KILL_POINTS[point]
@@ -143,7 +179,54 @@ def test_kill_at_a_chosen_point(crash_lab: tuple[Lab, bytes], tmp_path: Path, po
 
 
 @pytest.mark.slow
-def test_kills_at_random_moments_from_outside(crash_lab: tuple[Lab, bytes],
+@pytest.mark.slow
+@pytest.mark.parametrize("point", list(PUBLISH_POINTS))
+def test_kill_while_publishing(crash_lab: tuple[Lab, dict[str, bytes]], tmp_path: Path,
+                               point: str) -> None:
+    lab, _ = crash_lab
+    store = _fresh_store(crash_lab, tmp_path)
+    stage, at, published = PUBLISH_POINTS[point]
+    proc = subprocess.run([sys.executable, "-c", KILLER, str(store), stage, str(at), "0"],
+                          capture_output=True, text=True, cwd=lab.root, timeout=300)
+    assert proc.returncode == -9, proc.stderr
+    tally("kills survived")
+    # the path holds a whole store, old or new, and no log that DuckDB would replay into it
+    assert not Layout.of(store).wal.exists()
+    assert _published_as_is(store) is published
+    # the batch was committed in the writer's copy: the next command (here a reader,
+    # check) publishes it, and the copies agree
+    result = cli("check", "--store", str(store))
+    assert result.returncode == 0, result.stdout + result.stderr
+    assert "published copy and writer's copy agree" in result.stdout
+    assert _published_as_is(store) is True
+    assert not Layout.of(store).staging.exists()
+    _assert_whole_then_complete(store, lab, True)
+
+
+@pytest.mark.slow
+def test_killed_publish_is_finished_by_the_next_writer(
+        crash_lab: tuple[Lab, dict[str, bytes]], tmp_path: Path) -> None:
+    """No reader comes by: the next append publishes the killed one's batch, then its own."""
+    lab, _ = crash_lab
+    store = _fresh_store(crash_lab, tmp_path)
+    proc = subprocess.run([sys.executable, "-c", KILLER, str(store), "publish", "2", "0"],
+                          capture_output=True, text=True, cwd=lab.root, timeout=300)
+    assert proc.returncode == -9, proc.stderr
+    tally("kills survived")
+    assert _published_as_is(store) is False
+    extra = lab.write("incoming/2026-04-02/c9999.csv", "cycle,capacity_ah\n12,2.88\n")
+    try:
+        result = cli("append", "--store", str(store), cwd=lab.root)
+        assert result.returncode == 0, result.stderr
+        assert "1 file(s), 1 row(s) loaded" in result.stdout
+        assert _published_as_is(store, more=1) is True
+        state = audit(store)
+        assert state.problems == [] and state.rows == BASE_ROWS + 2 * BIG + 1
+    finally:
+        extra.unlink()
+
+
+def test_kills_at_random_moments_from_outside(crash_lab: tuple[Lab, dict[str, bytes]],
                                               tmp_path: Path) -> None:
     """The CLI append killed by the parent after random delays, over and over, on one store."""
     lab, _ = crash_lab
@@ -182,7 +265,7 @@ def test_kills_at_random_moments_from_outside(crash_lab: tuple[Lab, bytes],
     _assert_whole_then_complete(store, lab, None)
 
 
-def test_killed_store_keeps_its_lock_free_and_accepts_readers(crash_lab: tuple[Lab, bytes],
+def test_killed_store_keeps_its_lock_free_and_accepts_readers(crash_lab: tuple[Lab, dict[str, bytes]],
                                                              tmp_path: Path) -> None:
     """SIGKILL mid-transaction leaves no stale lock: readers and writers get in at once."""
     lab, _ = crash_lab
@@ -353,12 +436,22 @@ def test_read_only_folder_gives_one_clear_error_and_changes_nothing(tmp_path: Pa
     assert state.problems == [] and state.rows == 2 + 60
 
 
-def test_read_only_store_file_is_refused_when_opening(tmp_path: Path) -> None:
+def test_unreplaceable_published_file_keeps_the_commit_for_the_next_command(
+        tmp_path: Path) -> None:
+    """The published file cannot be replaced: the batch is committed in the writer's copy,
+    the append says the publish failed, readers keep the old state and check says the
+    copies differ; once the file can be replaced the next command publishes the batch."""
     lab = _lab_with_store_at(tmp_path, tmp_path / "store.duckdb")
     lab.day("2026-03-03", {"c02": [(1, 3.0)]})
     with _Frozen(lab.store):
         result = cli("append", "--store", str(lab.store), cwd=lab.root)
         assert result.returncode == 2 and one_clean_line(result.stderr), result.stderr
-        assert "cannot open the store" in result.stderr
-    assert cli("append", "--store", str(lab.store), cwd=lab.root).returncode == 0
+        assert "the change is committed but the read copy could not be published" \
+            in result.stderr
+        assert _state(lab.store)[0] == 2
+        result = cli("check", "--store", str(lab.store))
+        assert result.returncode == 1, result.stdout + result.stderr
+        assert "published copy and writer's copy differ" in result.stdout
+    result = cli("append", "--store", str(lab.store), cwd=lab.root)
+    assert result.returncode == 0 and result.stdout.startswith("nothing new"), result.stderr
     assert audit(lab.store).rows == 3

@@ -255,46 +255,55 @@ def _fsync_folder(folder: Path) -> None:
 
 def copy_file(src: Path, dst: Path, progress: Progress | None = None,
               stage: str = "copy") -> str:
-    """Copy ``src`` to ``dst`` and flush it to disk; returns how ("reflink" or "copy").
+    """Copy ``src`` to ``dst`` (not yet flushed to disk); returns how: "reflink" when the
+    copy shares the source's blocks, "copy" otherwise.
 
     Progress is reported in MiB between steps of the copy.
     """
     with open(src, "rb") as fin, open(dst, "wb") as fout:
         total = os.fstat(fin.fileno()).st_size
         mib = -(-total // CHUNK)
-        how = "copy"
+        if progress:
+            progress(stage, 0, mib)
         try:
             fcntl.ioctl(fout.fileno(), FICLONE, fin.fileno())
-            how = "reflink"
+            return "reflink"
         except OSError:
-            done = 0
-            while done < total:
-                if progress:
-                    progress(stage, done // CHUNK, mib)
-                step = min(CHUNK, total - done)
-                try:
-                    n = os.copy_file_range(fin.fileno(), fout.fileno(), step)
-                except OSError as err:
-                    if err.errno not in (errno.EXDEV, errno.ENOSYS, errno.EINVAL,
-                                         errno.EOPNOTSUPP):
-                        raise
-                    n = 0
-                if n == 0:  # no kernel copy here: plain reads and writes from this offset
-                    fin.seek(done)
-                    fout.seek(done)
-                    block = fin.read(step)
-                    if not block:
-                        break
-                    fout.write(block)
-                    fout.flush()
-                    n = len(block)
-                done += n
+            pass
+        done = 0
+        while done < total:
+            if progress and done:
+                progress(stage, done // CHUNK, mib)
+            step = min(CHUNK, total - done)
+            try:
+                n = os.copy_file_range(fin.fileno(), fout.fileno(), step)
+            except OSError as err:
+                if err.errno not in (errno.EXDEV, errno.ENOSYS, errno.EINVAL, errno.EOPNOTSUPP):
+                    raise
+                n = 0
+            if n == 0:  # no kernel copy here: plain reads and writes from this offset
+                fin.seek(done)
+                fout.seek(done)
+                block = fin.read(step)
+                if not block:
+                    break
+                fout.write(block)
+                fout.flush()
+                n = len(block)
+            done += n
         if progress:
             progress(stage, mib, mib)
-        fout.flush()
-        os.fsync(fout.fileno())
-    os.chmod(dst, stat.S_IMODE(os.stat(src).st_mode))
-    return how
+    return "copy"
+
+
+def flush_file(path: Path, like: Path) -> None:
+    """Flush a written copy to disk and give it the mode of the file it copies."""
+    os.chmod(path, stat.S_IMODE(os.stat(like).st_mode))
+    fd = os.open(path, os.O_RDONLY)
+    try:
+        os.fsync(fd)
+    finally:
+        os.close(fd)
 
 
 def _set_aside_foreign_wal(layout: Layout) -> Path | None:
@@ -347,7 +356,9 @@ def _publish_file(layout: Layout, progress: Progress | None) -> Published:
         how = copy_file(layout.writer, layout.staging, progress)
         if progress:
             progress("publish", 1, 4)
-            progress("publish", 2, 4)  # copy_file flushed the copy before returning
+        flush_file(layout.staging, layout.writer)
+        if progress:
+            progress("publish", 2, 4)
         result = Published(how=how, bytes=layout.staging.stat().st_size)
         result.discarded_wal = _set_aside_foreign_wal(layout)
         os.replace(layout.staging, layout.published)
@@ -404,6 +415,7 @@ def convert(lock: WriterLock) -> bool:
     temporary = layout.writer.with_name(layout.writer.name + ".new")
     try:
         copy_file(layout.published, temporary)
+        flush_file(temporary, layout.published)
         os.replace(temporary, layout.writer)
         _fsync_folder(layout.writer.parent)
     except OSError as err:
