@@ -166,7 +166,8 @@ PUBLISH_POINTS = {
 
 @pytest.mark.slow
 @pytest.mark.parametrize("point", list(KILL_POINTS))
-def test_kill_at_a_chosen_point(crash_lab: tuple[Lab, dict[str, bytes]], tmp_path: Path, point: str) -> None:
+def test_kill_at_a_chosen_point(crash_lab: tuple[Lab, dict[str, bytes]], tmp_path: Path,
+                                point: str) -> None:
     lab, _ = crash_lab
     store = _fresh_store(crash_lab, tmp_path)
     stage, at, delay, present = KILL_POINTS[point]
@@ -265,8 +266,8 @@ def test_kills_at_random_moments_from_outside(crash_lab: tuple[Lab, dict[str, by
     _assert_whole_then_complete(store, lab, None)
 
 
-def test_killed_store_keeps_its_lock_free_and_accepts_readers(crash_lab: tuple[Lab, dict[str, bytes]],
-                                                             tmp_path: Path) -> None:
+def test_killed_store_keeps_its_lock_free_and_accepts_readers(
+        crash_lab: tuple[Lab, dict[str, bytes]], tmp_path: Path) -> None:
     """SIGKILL mid-transaction leaves no stale lock: readers and writers get in at once."""
     lab, _ = crash_lab
     store = _fresh_store(crash_lab, tmp_path)

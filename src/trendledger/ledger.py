@@ -109,7 +109,8 @@ class Ledger:
         """
         target = Path(path)
         if read_only:
-            # A killed writer may have left its last commit unpublished: publish it first.
+            # A killed writer may have left its last commit unpublished, or a foreign
+            # client a log beside the published copy: publish afresh first.
             publish.settle(target)
             try:
                 con = store.connect(target, read_only=True, wait=0,
@@ -117,7 +118,7 @@ class Ledger:
             except BusyError:
                 # Another program holds the published copy read-write; unless a writer is
                 # running, a fresh copy at the path lets readers in at once.
-                publish.republish(target)
+                publish.settle(target, fresh=True)
                 con = store.connect(target, read_only=True, wait=wait,
                                     config=dict(LOCKED), trace=trace)
             return cls(target, con, True)

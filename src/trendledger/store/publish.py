@@ -165,6 +165,8 @@ class WriterLock:
         key = os.path.realpath(layout.lock)
         held = _HELD.get(key)
         if held is not None:
+            if not blocking:  # a publish on the side must not run inside our own write
+                return None
             held.count += 1
             return cls(layout, key, held)
         try:
@@ -395,7 +397,7 @@ def _checkpoint_file(path: Path) -> None:
 def finish_due_publish(lock: WriterLock, progress: Progress | None = None) -> bool:
     """With the lock held: publish what a killed writer committed; True if it did."""
     layout = lock.layout
-    if not publish_due(layout):
+    if not (publish_due(layout) or (layout.wal.exists() and layout.writer.exists())):
         return False
     _checkpoint_file(layout.writer)
     _publish_file(layout, progress)
@@ -427,32 +429,18 @@ def convert(lock: WriterLock) -> bool:
     return True
 
 
-def settle(path: Path) -> None:
-    """Before a read: if a killed writer left a publish due and no writer is running, publish
-    now, so the reader sees every committed batch. Best effort: a reader that cannot write
-    the folder reads the copy that is there."""
-    layout = Layout.of(path)
-    if not publish_due(layout):
-        return
-    with contextlib.suppress(OSError, StoreError, duckdb.Error):
-        lock = WriterLock.acquire(layout, wait=0, command="publish before a read",
-                                  blocking=False)
-        if lock is None:
-            return
-        try:
-            finish_due_publish(lock)
-        finally:
-            lock.release()
-
-
-def republish(path: Path) -> bool:
-    """Replace the published copy with a fresh one when no writer is running (a read-write
-    client holds the old one and keeps readers out); True if it did."""
+def settle(path: Path, *, fresh: bool = False) -> bool:
+    """Before a read, when no writer is running, publish again if a killed writer left a
+    publish due, if a foreign client left a log beside the published copy, or (``fresh``)
+    always; True if it did. Best effort: a reader that cannot write the folder reads the
+    copy that is there."""
     layout = Layout.of(path)
     if not layout.writer.exists():
         return False
+    if not (fresh or publish_due(layout) or layout.wal.exists()):
+        return False
     with contextlib.suppress(OSError, StoreError, duckdb.Error):
-        lock = WriterLock.acquire(layout, wait=0, command="publish for a reader",
+        lock = WriterLock.acquire(layout, wait=0, command="publish before a read",
                                   blocking=False)
         if lock is None:
             return False
