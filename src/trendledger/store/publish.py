@@ -82,6 +82,11 @@ class Layout:
         return self._beside(".publish")
 
     @property
+    def converting(self) -> Path:
+        """Where a single-file store's writer's copy is made before it is renamed."""
+        return self._beside(".writer.new")
+
+    @property
     def wal(self) -> Path:
         """A write-ahead log beside the published copy: only a foreign read-write client
         writes one."""
@@ -93,7 +98,8 @@ class Layout:
 
     def files(self) -> list[Path]:
         """Every file the store may have on disk, the published copy first."""
-        return [self.published, self.writer, self.writer_wal, self.lock, self.staging, self.wal]
+        return [self.published, self.writer, self.writer_wal, self.lock, self.staging,
+                self.converting, self.wal]
 
     def exists(self) -> bool:
         return self.published.exists() or self.writer.exists()
@@ -386,8 +392,8 @@ def _checkpoint_file(path: Path) -> None:
     try:
         con = duckdb.connect(str(path))
     except duckdb.Error as err:
-        raise StoreError(f"cannot open the writer's copy: {first_line(err)}",
-                         file=str(path)) from err
+        raise StoreError(f"cannot open the store to fold in its write-ahead log: "
+                         f"{first_line(err)}", file=str(path)) from err
     try:
         con.execute("CHECKPOINT")
     finally:
@@ -414,7 +420,7 @@ def convert(lock: WriterLock) -> bool:
         return False
     if layout.wal.exists():
         _checkpoint_file(layout.published)
-    temporary = layout.writer.with_name(layout.writer.name + ".new")
+    temporary = layout.converting
     try:
         copy_file(layout.published, temporary)
         flush_file(temporary, layout.published)
