@@ -342,12 +342,15 @@ def publish(con: duckdb.DuckDBPyConnection, lock: WriterLock,
             progress: Progress | None = None) -> Published:
     """Publish the writer's copy (open on ``con``) at the store's path; see the module doc.
 
-    Steps, reported to ``progress`` as ("publish", step, 4): 0 checkpointed, 1 copied,
-    2 flushed, 3 renamed, 4 done. A failure leaves the old copy in place and the
-    publish due; the next command does it again.
+    Steps, reported to ``progress``: ("checkpoint", 0, 1) before the checkpoint, then
+    ("publish", step, 4): 0 checkpointed, 1 copied, 2 flushed, 3 renamed, 4 done. A
+    failure leaves the old copy in place and the publish due; the next command does it
+    again.
     """
     layout = lock.layout
     start = time.perf_counter()
+    if progress:
+        progress("checkpoint", 0, 1)
     con.execute("CHECKPOINT")
     result = _publish_file(layout, progress)
     lock.mark("published")
