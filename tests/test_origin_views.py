@@ -1,7 +1,8 @@
 """Per-row diagnostics and the projected crossing for fits through the origin.
 
-sql/views/points_origin.sql and sql/views/crossing_origin.sql are the twins of points.sql and
-crossing.sql that views.template_for picks for a fit with ``through_origin = true``. One store
+sql/views/points.sql takes the line through the origin from sql/parts/line_origin.sql (the slot
+__line__), and sql/views/crossing_origin.sql is the twin of crossing.sql that views.template_for
+picks for a fit with ``through_origin = true``. One store
 is built from real files in a temporary lab and read through the API. Every statistic is checked
 against statsmodels on the same rows, fitted without a constant (OLS(y, x)): the influence
 measures of OLSInfluence, the Bonferroni outlier test of OLSResults.outlier_test, and for the
@@ -201,16 +202,17 @@ def test_origin_twins_are_installed(store: Path) -> None:
                       "fit_line_crossing")
         }
     for fit in ("fade", "floor", "wide"):
-        assert views.template_for(spec.fit(fit), "points") == "views/points_origin.sql"
+        # one points template for both lines; the line through the origin comes from its part
+        assert views.template_for(spec.fit(fit), "points") == "views/points.sql"
+        assert views.fit_values(spec, spec.fit(fit))["line"] == "line_origin"
         assert views.template_for(spec.fit(fit), "crossing") == "views/crossing_origin.sql"
         assert listed.loc[f"fit_{fit}_points", "kind"] == "points"
         assert listed.loc[f"fit_{fit}_crossing", "kind"] == "crossing"
-        assert "through the origin" in listed.loc[f"fit_{fit}_points", "description"]
         assert "through the origin" in listed.loc[f"fit_{fit}_crossing", "description"]
         # still no origin twin for these: not installed
         for kind in ("windows", "change", "break", "alerts"):
             assert f"fit_{fit}_{kind}" not in listed.index
-    assert "through the origin" not in listed.loc["fit_line_points", "description"]
+    assert views.fit_values(spec, spec.fit("line"))["line"] == "line_intercept"
     # the same columns in the same order with the same types as with an intercept
     assert described["fit_fade_points"] == described["fit_line_points"]
     assert described["fit_fade_crossing"] == described["fit_line_crossing"]

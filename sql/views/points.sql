@@ -1,6 +1,10 @@
--- Every row against its group's line: value on the line, residual, scaled residuals, leverage,
--- Cook's distance and a Bonferroni outlier flag.
+-- Every row against its group's line (with an intercept, or through the origin): value on the
+-- line, residual, scaled residuals, leverage, Cook's distance and a Bonferroni outlier flag.
 
+-- The line comes from the slot __line__: sql/parts/line_intercept.sql (y = y_mean + slope
+-- (x - x_mean), two parameters) or line_origin.sql for a fit through the origin (y = slope x,
+-- one parameter: leverage x^2 / sum(x^2), n - 2 degrees of freedom without the row, Cook's
+-- distance r^2 h / (1 - h), status y_all_zero for constant_y). Below, the line with an intercept.
 -- One row per row of the data. Columns:
 --   group columns     as in the fit view
 --   x, y              the row's x and y, as DOUBLE
@@ -73,8 +77,8 @@ readings AS (
 line AS (
     SELECT
         *,
-        CASE WHEN isfinite(x) THEN y_mean + slope * dx END AS y_line_x,
-        CASE WHEN counted AND sxx > 0 THEN 1.0 / n + dx * dx / sxx END AS h
+        __line__.y_line_x AS y_line_x,
+        __line__.leverage AS h
     FROM readings
 ),
 scaled AS (
@@ -82,7 +86,7 @@ scaled AS (
         *,
         CASE WHEN counted THEN y - y_line_x END AS e,
         CASE
-            WHEN counted AND status = 'ok' AND n >= 4 AND h < 1
+            WHEN counted AND status = 'ok' AND __line__.enough_without AND h < 1
                 THEN rss - (y - y_line_x) * (y - y_line_x) / (1 - h)
         END AS rss_without
     FROM line
@@ -92,7 +96,7 @@ tested AS (
         *,
         CASE WHEN status = 'ok' AND h < 1 AND s > 0 THEN e / (s * sqrt(1 - h)) END AS r_int,
         CASE
-            WHEN rss_without > rss_noise THEN e / sqrt(rss_without / (n - 3) * (1 - h))
+            WHEN rss_without > rss_noise THEN e / sqrt(rss_without / __line__.df_without * (1 - h))
         END AS r_ext
     FROM scaled
 ),
@@ -100,7 +104,7 @@ adjusted AS (
     SELECT
         *,
         CASE
-            WHEN isfinite(r_ext) THEN least(1.0, n * tl_t_two_sided(r_ext, n - 3))
+            WHEN isfinite(r_ext) THEN least(1.0, n * tl_t_two_sided(r_ext, __line__.df_without))
             -- the other rows lie on a line: residual_t is infinite
             WHEN rss_without IS NOT NULL THEN 0.0
         END AS p_adj
@@ -116,11 +120,10 @@ SELECT
     CASE WHEN isfinite(r_int) THEN r_int END AS residual_scaled,
     CASE WHEN isfinite(r_ext) THEN r_ext END AS residual_t,
     CASE WHEN isfinite(h) THEN h END AS leverage,
-    CASE WHEN isfinite(r_int * r_int * h / (2 * (1 - h))) THEN r_int * r_int * h / (2 * (1 - h))
-    END AS cook_distance,
+    __line__.cook_distance AS cook_distance,
     p_adj AS outlier_p,
     CASE
         WHEN p_adj IS NOT NULL THEN p_adj < __alpha__
-        WHEN counted AND status IN ('perfect_fit', 'constant_y') THEN false
+        WHEN counted AND status IN ('perfect_fit', __line__.no_spread) THEN false
     END AS outlier
 FROM adjusted

@@ -182,8 +182,10 @@ def _splice_parts(tree: exp.Expression, values: Mapping[str, Value]) -> exp.Expr
                 raise TemplateError(f"part {part} has no expression {col.name}",
                                     file=str(sql_dir() / "parts" / f"{part}.sql"))
             new = exprs[col.name].copy()
+            # a comparison needs no parentheses as an operand of AND / OR
             if not isinstance(new, _ATOMS) and isinstance(
-                    col.parent, exp.Binary | exp.Unary | exp.Between | exp.Is):
+                    col.parent, exp.Binary | exp.Unary | exp.Between | exp.Is) and not (
+                    isinstance(new, exp.Predicate) and isinstance(col.parent, exp.Connector)):
                 new = exp.Paren(this=new)
             if col is tree:
                 return new

@@ -58,6 +58,8 @@ def fit_values(spec: Spec, fit: Fit) -> dict[str, Any]:
         # the window key part (sql/parts/): calendar windows of the date field, or spans of x
         "window_key": (Part("window_calendar") if fit.window
                        else Part("window_span") if fit.window_x else None),
+        # the line part (sql/parts/): with an intercept, or through the origin
+        "line": Part("line_origin" if fit.through_origin else "line_intercept"),
         "min_r2": fit.min_r2,
         "alpha": fit.alpha,
         # the same numbers as text for notes, formatted here so every engine prints them alike
