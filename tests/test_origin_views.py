@@ -1,8 +1,8 @@
 """Per-row diagnostics and the projected crossing for fits through the origin.
 
-sql/views/points.sql takes the line through the origin from sql/parts/line_origin.sql (the slot
-__line__), and sql/views/crossing_origin.sql is the twin of crossing.sql that views.template_for
-picks for a fit with ``through_origin = true``. One store
+sql/views/points.sql and sql/views/crossing.sql take the line through the origin from
+sql/parts/line_origin.sql and cross_origin.sql (the slots __line__ and __cross__) for a fit with
+``through_origin = true``. One store
 is built from real files in a temporary lab and read through the API. Every statistic is checked
 against statsmodels on the same rows, fitted without a constant (OLS(y, x)): the influence
 measures of OLSInfluence, the Bonferroni outlier test of OLSResults.outlier_test, and for the
@@ -205,10 +205,10 @@ def test_origin_twins_are_installed(store: Path) -> None:
         # one points template for both lines; the line through the origin comes from its part
         assert views.template_for(spec.fit(fit), "points") == "views/points.sql"
         assert views.fit_values(spec, spec.fit(fit))["line"] == "line_origin"
-        assert views.template_for(spec.fit(fit), "crossing") == "views/crossing_origin.sql"
+        assert views.template_for(spec.fit(fit), "crossing") == "views/crossing.sql"
+        assert views.fit_values(spec, spec.fit(fit))["cross"] == "cross_origin"
         assert listed.loc[f"fit_{fit}_points", "kind"] == "points"
         assert listed.loc[f"fit_{fit}_crossing", "kind"] == "crossing"
-        assert "through the origin" in listed.loc[f"fit_{fit}_crossing", "description"]
         # still no origin twin for these: not installed
         for kind in ("windows", "change", "break", "alerts"):
             assert f"fit_{fit}_{kind}" not in listed.index

@@ -1,6 +1,11 @@
--- Where each group's fitted line reaches the fit's limit: the crossing x with a Fieller
--- confidence interval by inverse regression, and the conservative one-sided 95% bound.
+-- Where each group's fitted line (with an intercept, or through the origin) reaches the fit's
+-- limit: the crossing x with a Fieller confidence interval by inverse regression, and the
+-- conservative one-sided 95% bound.
 
+-- The line's degrees of freedom come from the slot __line__ (sql/parts/line_intercept.sql or
+-- line_origin.sql), the crossing and its ends from the slot __cross__ (cross_intercept.sql, or
+-- cross_origin.sql for y = slope x: cross_x = limit / slope, n - 1 degrees of freedom, 'slope
+-- points away' also for a crossing at a negative x). Below, the line with an intercept.
 -- One row per group of the fit view. Columns:
 --   group columns   as in the fit view
 --   cross_x         x where the fitted line reaches the limit: x_mean + (limit - y_mean) / slope
@@ -50,9 +55,9 @@ WITH groups AS MATERIALIZED (
 quantiles AS MATERIALIZED (
     SELECT
         n,
-        tl_t_crit((1 - __level__) / 2, n - 2) AS t_level,
-        tl_t_crit(0.05, n - 2) AS t_bound
-    FROM (SELECT DISTINCT n FROM groups WHERE n >= 3) AS sizes
+        tl_t_crit((1 - __level__) / 2, __line__.df) AS t_level,
+        tl_t_crit(0.05, __line__.df) AS t_bound
+    FROM (SELECT DISTINCT n FROM groups WHERE __line__.has_df) AS sizes
 ),
 setup AS (
     SELECT
@@ -60,9 +65,9 @@ setup AS (
         q.t_level,
         q.t_bound,
         CAST(__limit__ AS DOUBLE) - g.y_mean AS c,
-        (CAST(__limit__ AS DOUBLE) - g.y_mean) / g.slope AS u0,
-        (q.t_level * g.slope_se / g.slope) * (q.t_level * g.slope_se / g.slope) AS g_level,
-        (q.t_bound * g.slope_se / g.slope) * (q.t_bound * g.slope_se / g.slope) AS g_bound
+        __cross__.u0 AS u0,
+        __cross__.g_level AS g_level,
+        __cross__.g_bound AS g_bound
     FROM groups AS g
     LEFT JOIN quantiles AS q USING (n)
 ),
@@ -70,10 +75,10 @@ judged AS (
     SELECT
         *,
         CASE
-            WHEN status NOT IN ('ok', 'perfect_fit', 'constant_y') OR slope IS NULL
+            WHEN status NOT IN ('ok', 'perfect_fit', __line__.no_spread) OR slope IS NULL
                 THEN 'no line: ' || status
             WHEN slope = 0 THEN 'flat line never reaches the limit'
-            WHEN x_mean + u0 < x_min THEN 'slope points away from the limit'
+            WHEN __cross__.away THEN 'slope points away from the limit'
             WHEN status = 'ok' AND NOT slope_p < __alpha__
                 THEN 'slope not significant at alpha ' || __alpha_text__
         END AS no_line
@@ -82,23 +87,17 @@ judged AS (
 roots AS (
     SELECT
         *,
-        CASE WHEN no_line IS NULL THEN x_mean + u0 END AS x_cross,
-        CASE
-            WHEN no_line IS NULL AND g_level < 1 THEN (t_level * s / abs(slope))
-                * sqrt(u0 * u0 / sxx + (1 - g_level) / n)
-        END AS w_level,
-        CASE
-            WHEN no_line IS NULL AND g_bound < 1 THEN (t_bound * s / abs(slope))
-                * sqrt(u0 * u0 / sxx + (1 - g_bound) / n)
-        END AS w_bound
+        __cross__.x_cross AS x_cross,
+        __cross__.w_level AS w_level,
+        __cross__.w_bound AS w_bound
     FROM judged
 ),
 ends AS (
     SELECT
         *,
-        x_mean + (u0 - w_level) / (1 - g_level) AS x_lo,
-        x_mean + (u0 + w_level) / (1 - g_level) AS x_hi,
-        x_mean + (u0 - w_bound) / (1 - g_bound) AS x_bound
+        __cross__.x_lo AS x_lo,
+        __cross__.x_hi AS x_hi,
+        __cross__.x_bound AS x_bound
     FROM roots
 )
 SELECT

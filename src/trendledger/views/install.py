@@ -35,9 +35,9 @@ RECOMPUTED_FIT = ("fit",)
 TABLE_MACROS = frozenset({"break"})
 
 #: Kinds whose statistics assume a line with an intercept: a fit through the origin gets them
-#: only from an ``_origin`` twin of the template (crossing has one), never from the plain one.
-#: A kind missing here takes the fit's line from the slot ``__line__`` (sql/parts/line_*.sql).
-INTERCEPT_ONLY = frozenset({"windows", "change", "break", "crossing", "alerts"})
+#: only from an ``_origin`` twin of the template, never from the plain one. A kind missing here
+#: takes the fit's line from the slots ``__line__`` and ``__cross__`` (sql/parts/).
+INTERCEPT_ONLY = frozenset({"windows", "change", "break", "alerts"})
 
 
 @dataclass(frozen=True)

@@ -60,6 +60,9 @@ def fit_values(spec: Spec, fit: Fit) -> dict[str, Any]:
                        else Part("window_span") if fit.window_x else None),
         # the line part (sql/parts/): with an intercept, or through the origin
         "line": Part("line_origin" if fit.through_origin else "line_intercept"),
+        # where the line reaches the limit (sql/parts/): Fieller's ends for either line
+        "cross": (Part("cross_origin" if fit.through_origin else "cross_intercept")
+                  if fit.limit is not None else None),
         "min_r2": fit.min_r2,
         "alpha": fit.alpha,
         # the same numbers as text for notes, formatted here so every engine prints them alike
