@@ -9,7 +9,37 @@
 --   df_without      n - 3, the residual degrees of freedom with the row left out
 --   cook_distance   r_int^2 h / (2 (1 - h)): Cook's distance with two parameters
 --   no_spread       the status of a group whose y are all the same: 'constant_y'
+--   b_ls            the least-squares slope sxy / sxx, for two different x
+--   ss_line, syy    explained and centred total sum of squares: b sxy and b sxy + rss
+--   stage           the fit's status before the range check (fit.sql)
+--   fit_slope       the slope given (0 for a constant y); fit_intercept the intercept
+--   has_spread      the y are not all the same
+--   r2_adj_ok       r2_adj of an ok fit: 1 - rss / syy (n - 1) / (n - 2)
+--   intercept_se    s sqrt(1 / n + x_mean^2 / sxx)
+--   df_of_g         n - 2 of the group read as g
 SELECT
+    CASE WHEN n >= 2 AND x_min < x_max THEN sxy / sxx END AS b_ls,
+    b_ls * sxy AS ss_line,
+    b_ls * sxy + rss_ls AS syy,
+    CASE
+        WHEN n < 3 THEN 'too_few_points'
+        WHEN x_min = x_max THEN 'constant_x'
+        WHEN NOT (sxx > 0 AND isfinite(sxx) AND isfinite(syy) AND isfinite(rss_noise))
+            THEN 'out_of_range'
+        WHEN y_min = y_max THEN 'constant_y'
+        WHEN rss_ls <= rss_noise THEN 'perfect_fit'
+        ELSE 'ok'
+    END AS stage,
+    -- a constant y (also with n = 2) gets its exact line, free of anchor rounding
+    CASE WHEN b_ls IS NOT NULL AND y_min = y_max THEN 0.0 ELSE b_ls END AS fit_slope,
+    CASE
+        WHEN b_ls IS NOT NULL AND y_min = y_max THEN y_min
+        ELSE y_mean - b_ls * x_mean
+    END AS fit_intercept,
+    y_min < y_max AS has_spread,
+    1 - rss_ls / syy * (n - 1) / (n - 2) AS r2_adj_ok,
+    sqrt(rss / (n - 2) * (1 / n + x_mean * x_mean / sxx)) AS intercept_se,
+    g.n - 2 AS df_of_g,
     CASE WHEN isfinite(x) THEN y_mean + slope * dx END AS y_line_x,
     CASE WHEN counted AND sxx > 0 THEN 1.0 / n + dx * dx / sxx END AS leverage,
     n - 2 AS df,

@@ -1,5 +1,6 @@
--- Straight-line least squares fit of y on x for every group: slope and intercept with their
--- standard errors, t test of the slope, confidence intervals, r2 and a status word per group.
+-- Straight-line least squares fit of y on x for every group (with an intercept, or through the
+-- origin): slope and intercept with their standard errors, t test of the slope, confidence
+-- intervals, r2 and a status word per group.
 
 -- A pair (x, y) counts when both values are present and finite (NULL, NaN and infinity are
 -- skipped); a group whose pairs are all skipped still gets a row, with n = 0. A NULL group key
@@ -31,6 +32,13 @@
 -- r2_adj = 1 - rss / syy (n - 1) / (n - 2) keep their digits for weak and strong fits alike. The
 -- t quantile and tail probability come from the tl_t_crit and tl_t_two_sided macros
 -- (sql/macros/t_dist.sql), with n - 2 degrees of freedom.
+--
+-- Through the origin (the slot __line__ holds sql/parts/line_origin.sql instead of
+-- line_intercept.sql): the same columns, intercept, intercept_se, intercept_lo and intercept_hi
+-- always NULL; n - 1 residual degrees of freedom; sums about the origin (sxx = sum(x^2), ...);
+-- r2 uncentred, 1 - rss / sum(y^2), as NIST defines it for its no-intercept datasets (StRD
+-- NoInt1, NoInt2), and r2_adj = 1 - (1 - r2) n / (n - 1); statuses too_few_points (n < 2),
+-- x_all_zero, out_of_range, y_all_zero (slope 0) and perfect_fit in place of the ones above.
 CREATE OR REPLACE VIEW __view__ AS
 WITH sums AS MATERIALIZED (
     SELECT
@@ -62,35 +70,27 @@ line AS (
         sxx,
         sxy,
         rss_noise,
-        CASE WHEN n >= 2 AND x_min < x_max THEN sxy / sxx END AS b_ls,
-        CASE WHEN n >= 3 THEN rss_all END AS rss_ls
+        __line__.b_ls AS b_ls,
+        CASE WHEN __line__.has_df THEN rss_all END AS rss_ls
     FROM sums
 ),
 spread AS (
     SELECT
         *,
         -- explained and total sum of squares, syy = ss_line + rss: no cancellation
-        b_ls * sxy AS ss_line,
-        b_ls * sxy + rss_ls AS syy
+        __line__.ss_line AS ss_line,
+        __line__.syy AS syy
     FROM line
 ),
 quantiles AS MATERIALIZED (
     -- one t quantile per group size, not per group: the macro is costly to plan and to run
-    SELECT n, tl_t_crit((1 - __level__) / 2, n - 2) AS t_crit
-    FROM (SELECT DISTINCT n FROM sums WHERE n >= 3) AS sizes
+    SELECT n, tl_t_crit((1 - __level__) / 2, __line__.df) AS t_crit
+    FROM (SELECT DISTINCT n FROM sums WHERE __line__.has_df) AS sizes
 ),
 classified AS (
     SELECT
         *,
-        CASE
-            WHEN n < 3 THEN 'too_few_points'
-            WHEN x_min = x_max THEN 'constant_x'
-            WHEN NOT (sxx > 0 AND isfinite(sxx) AND isfinite(syy) AND isfinite(rss_noise))
-                THEN 'out_of_range'
-            WHEN y_min = y_max THEN 'constant_y'
-            WHEN rss_ls <= rss_noise THEN 'perfect_fit'
-            ELSE 'ok'
-        END AS stage
+        __line__.stage AS stage
     FROM spread
 ),
 estimates AS (
@@ -100,23 +100,19 @@ estimates AS (
         stage,
         x_mean,
         sxx,
-        -- a constant y (also with n = 2) gets its exact line, free of anchor rounding
-        CASE WHEN b_ls IS NOT NULL AND y_min = y_max THEN 0.0 ELSE b_ls END AS slope,
-        CASE
-            WHEN b_ls IS NOT NULL AND y_min = y_max THEN y_min
-            ELSE y_mean - b_ls * x_mean
-        END AS intercept,
+        __line__.fit_slope AS slope,
+        __line__.fit_intercept AS intercept,
         CASE
             WHEN stage = 'ok' THEN rss_ls
-            WHEN stage IN ('constant_y', 'perfect_fit') THEN 0.0
+            WHEN stage IN (__line__.no_spread, 'perfect_fit') THEN 0.0
         END AS rss,
         CASE
             WHEN stage = 'ok' THEN ss_line / syy
             WHEN stage = 'perfect_fit' THEN 1.0
-            WHEN stage = 'too_few_points' AND b_ls IS NOT NULL AND y_min < y_max THEN 1.0
+            WHEN stage = 'too_few_points' AND b_ls IS NOT NULL AND __line__.has_spread THEN 1.0
         END AS r2,
         CASE
-            WHEN stage = 'ok' THEN 1 - rss_ls / syy * (n - 1) / (n - 2)
+            WHEN stage = 'ok' THEN __line__.r2_adj_ok
             WHEN stage = 'perfect_fit' THEN 1.0
         END AS r2_adj,
         t_crit
@@ -126,9 +122,9 @@ estimates AS (
 errors AS (
     SELECT
         *,
-        sqrt(rss / (n - 2)) AS resid_sd,
-        sqrt(rss / (n - 2) / sxx) AS slope_se,
-        sqrt(rss / (n - 2) * (1 / n + x_mean * x_mean / sxx)) AS intercept_se
+        sqrt(rss / __line__.df) AS resid_sd,
+        sqrt(rss / __line__.df / sxx) AS slope_se,
+        __line__.intercept_se AS intercept_se
     FROM estimates
 ),
 intervals AS (
@@ -168,7 +164,7 @@ SELECT
     f.slope_se,
     f.intercept_se,
     f.slope_t,
-    CASE WHEN f.slope_t IS NOT NULL THEN tl_t_two_sided(f.slope_t, g.n - 2) END AS slope_p,
+    CASE WHEN f.slope_t IS NOT NULL THEN tl_t_two_sided(f.slope_t, __line__.df_of_g) END AS slope_p,
     f.slope_lo,
     f.slope_hi,
     f.intercept_lo,

@@ -1,8 +1,8 @@
 -- Straight-line least squares fit of y on x for every group, as stored: slope and intercept with
 -- their standard errors, t test, confidence intervals, r2 and a status word per group.
 
--- The columns, statuses and numbers are those of fit.sql (or fit_origin.sql for a fit through
--- the origin), computed from the fit's stored sums and kept in a table with one row per group:
+-- The columns, statuses and numbers are those of fit.sql (its line through the origin for a fit
+-- through the origin), computed from the fit's stored sums and kept in a table with one row per group:
 -- every append refits the groups its rows touched (src/trendledger/moments.py), so reading the
 -- fit costs the same however long the history, and no Student t quantile or tail is evaluated
 -- at read time. fit_<name>_full computes the same columns from every row.

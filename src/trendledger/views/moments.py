@@ -6,7 +6,7 @@ Every fit has two tables with one row per group:
   syy, the residual sum of squares of the least-squares line, the ranges and a rounding bound
   (for a fit through the origin the sums are taken about the origin); the view
   ``fit_<fit>_moments`` reads it;
-* ``tl_fit_<fit>``, the statistics: the rows of fit.sql (or fit_origin.sql) over those sums;
+* ``tl_fit_<fit>``, the statistics: the rows of fit.sql (either line) over those sums;
   the view ``fit_<fit>`` reads it, so reading a fit costs O(groups), not O(rows), and no
   Student t quantile or tail is evaluated at read time.
 
@@ -95,7 +95,7 @@ def _calc_sql(spec: Spec, fit: Fit, source: str) -> list[str]:
 
 
 def _fit_sql(spec: Spec, fit: Fit, sums: str) -> list[str]:
-    """fit.sql (or its _origin twin) over the sums in ``sums``, into the temporary table
+    """fit.sql over the sums in ``sums``, into the temporary table
     tl_mfitted."""
     key = (spec.digest, fit, "fit", sums)
     if key not in _RENDERED:
