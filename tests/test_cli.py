@@ -64,7 +64,7 @@ def test_bad_file_gives_one_line_and_exit_3(lab: Lab) -> None:
     assert err.count("\n") == 1
     assert err.startswith("trendledger: error: incoming/2026-03-02/c02.csv:3: column capacity_ah")
     assert "Traceback" not in out + err
-    code, out, err = tl("append", "--store", str(lab.store), "--skip-bad")
+    code, out, err = tl("append", "--store", str(lab.store), "--skip-bad", "--retry-rejected")
     assert code == 3 and "batch 1: 1 file(s)" in out and "rejected incoming" in err
 
 

@@ -87,7 +87,7 @@ def test_store_of_an_earlier_version_is_upgraded_in_place(lab: Lab) -> None:
         steps = led.con.execute("SELECT version FROM tl_migrations").fetchall()
         first = led.con.execute("SELECT version, applied_at FROM tl_spec_history").fetchall()
         assert led.append().rows == 2
-    assert steps == [(2,)]
+    assert steps == [(v,) for v, _ in store.schema_steps() if v >= 2]
     assert first[0][0] == 1 and str(first[0][1]).startswith("2026-01-05")
 
 

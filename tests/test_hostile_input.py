@@ -421,8 +421,10 @@ def test_a_fraction_in_an_integer_column_of_a_parquet_file_is_refused(tmp_path: 
         with pytest.raises(InputError, match="2.5 is not a whole number") as info:
             led.append()
         assert info.value.file == "incoming/2026-03-02/half.parquet"
-        summary = led.append(skip_bad=True)
-        assert (summary.files, summary.rejected) == (1, 1)
+        # the refused file waits; asked to retry it, --skip-bad records it as rejected
+        assert led.append(skip_bad=True).waiting == 1
+        summary = led.append(skip_bad=True, retry_rejected=True)
+        assert (summary.files, summary.rejected) == (0, 1)
         assert led.con.execute("SELECT cycle FROM measurements").fetchall() == [(12,)]
 
 

@@ -103,6 +103,7 @@ def append(
     replace: Annotated[bool, typer.Option("--replace", help="Load changed files over their old rows")] = False,
     skip_bad: Annotated[bool, typer.Option("--skip-bad", help="Load the good files, record bad ones as rejected (exit 3)")] = False,
     rehash: Annotated[bool, typer.Option("--rehash", help="Hash every file even if size and time are unchanged")] = False,
+    retry_rejected: Annotated[bool, typer.Option("--retry-rejected", help="Try again the files refused earlier whose content has not changed")] = False,
     as_json: Annotated[bool, typer.Option("--json", help="Print the batch summary as JSON")] = False,
     wait: WaitOpt = DEFAULT_WAIT,
 ) -> None:
@@ -110,7 +111,7 @@ def append(
     try:
         with _open(store, read_only=False, wait=wait) as led:
             summary = led.append(patterns or None, replace=replace, skip_bad=skip_bad,
-                                 rehash=rehash, progress=_Bar())
+                                 rehash=rehash, retry_rejected=retry_rejected, progress=_Bar())
     except TrendledgerError as err:
         _fail(err)
         return
@@ -128,6 +129,13 @@ def append(
         for o in summary.outcomes:
             if o.status == "rejected":
                 typer.echo(f"  rejected {o.path}: {o.message}", err=True)
+        if summary.waiting:
+            typer.echo(f"{summary.waiting} file(s) refused earlier and unchanged since are "
+                       "waiting (see 'trendledger waiting'; --retry-rejected tries them):",
+                       err=True)
+            for o in summary.outcomes:
+                if o.status == "waiting":
+                    typer.echo(f"  waiting {o.path}: {o.message}", err=True)
     if summary.rejected:
         raise typer.Exit(3)
 
@@ -167,6 +175,40 @@ def retract(
         _fail(err)
         return
     typer.echo(f"retracted {done['files']} file(s), {done['rows']} row(s)")
+
+
+@app.command("waiting")
+def waiting_cmd(
+    every: Annotated[bool, typer.Option("--all", help="Also files set aside, and refusals closed by a later load")] = False,
+    fmt: FormatOpt = "table",
+    store: StoreOpt = None,
+    wait: WaitOpt = DEFAULT_WAIT,
+) -> None:
+    """List the files an append refused that wait for a change (or for --retry-rejected)."""
+    try:
+        with _open(store, read_only=True, wait=wait) as led:
+            df = led.waiting(every)
+    except TrendledgerError as err:
+        _fail(err)
+        return
+    _print(df, fmt)
+
+
+@app.command("set-aside")
+def set_aside(
+    file: Annotated[str, typer.Argument(help="A waiting file (path as 'waiting' lists it)")],
+    why: Annotated[str, typer.Option("--why", help="The reason, kept with the file")],
+    store: StoreOpt = None,
+    wait: WaitOpt = DEFAULT_WAIT,
+) -> None:
+    """Set a waiting file aside for good: appends pass over it even if it changes."""
+    try:
+        with _open(store, read_only=False, wait=wait) as led:
+            led.set_aside(file, why=why)
+    except TrendledgerError as err:
+        _fail(err)
+        return
+    typer.echo(f"set aside {file}")
 
 
 @app.command()
@@ -255,6 +297,7 @@ def watch(
     try:
         with _open(store, read_only=True, wait=wait) as led:
             df = led.watch(name)
+            held = led.waiting()
     except TrendledgerError as err:
         _fail(err)
         return
@@ -264,6 +307,12 @@ def watch(
         _print(df, fmt)
         if df["reason"].isin(watch_mod.PROJECTIONS).any():
             typer.echo(watch_mod.CAUTION, err=fmt != "markdown")
+    if len(held):
+        # beside a machine format the note goes to stderr, so stdout stays parseable
+        typer.echo(f"\n{len(held)} file(s) refused by an append are waiting "
+                   "(see 'trendledger waiting'):", err=fmt != "table")
+        for row in held.itertuples(index=False):
+            typer.echo(f"  {row.path}: {row.message}", err=fmt != "table")
     if watch_mod.failing(df, fail_on):
         raise typer.Exit(1)
 

@@ -14,11 +14,11 @@ from typing import Any
 import duckdb
 import pandas as pd
 
-from trendledger.errors import BusyError, StoreError, TrendledgerError, first_line
+from trendledger.errors import BusyError, InputError, StoreError, TrendledgerError, first_line
 from trendledger.spec import Spec
 from trendledger.spec import load as load_spec
 from trendledger.store import db as store
-from trendledger.store import evolve, ingest, lineage, publish
+from trendledger.store import evolve, ingest, lineage, publish, waiting
 from trendledger.store.evolve import SpecChange
 from trendledger.store.ingest import BatchSummary, Progress
 from trendledger.store.lineage import CheckReport
@@ -209,16 +209,30 @@ class Ledger:
         replace: bool = False,
         skip_bad: bool = False,
         rehash: bool = False,
+        retry_rejected: bool = False,
         progress: Progress | None = None,
         command: str | None = None,
     ) -> BatchSummary:
-        """Append files (default: every file the spec's template matches) as one batch."""
+        """Append files (default: every file the spec's template matches) as one batch.
+
+        A file refused earlier waits until its content changes; ``retry_rejected``
+        tries such files again (see :meth:`waiting`).
+        """
+        refused: InputError | None = None
         with self._changing(progress):
-            summary = ingest.append(
-                self.con, self.spec, self.root, patterns,
-                replace=replace, skip_bad=skip_bad, rehash=rehash, progress=progress,
-                command=command if command is not None else " ".join(sys.argv),
-            )
+            try:
+                summary = ingest.append(
+                    self.con, self.spec, self.root, patterns,
+                    replace=replace, skip_bad=skip_bad, rehash=rehash,
+                    retry_rejected=retry_rejected, progress=progress,
+                    command=command if command is not None else " ".join(sys.argv),
+                )
+            except InputError as err:
+                # the batch did not happen, but the note that its bad files wait was
+                # committed (waiting.py): publish it, then say why the batch was refused
+                refused = err
+        if refused is not None:
+            raise refused
         return summary
 
     def lineage(
@@ -236,6 +250,22 @@ class Ledger:
         with self._changing():
             done = lineage.retract(self.con, why=why, batch=batch, path=file)
         return done
+
+    def waiting(self, every: bool = False) -> pd.DataFrame:
+        """Files refused by an append and not tried since (``every``: also those set aside
+        or loaded later), with the reason and how often they were refused."""
+        return waiting.listing(self.con, every)
+
+    def set_aside(self, file: str, *, why: str) -> None:
+        """Set a waiting file aside for good: appends pass over it, the reason is kept."""
+        with self._changing():
+            self.con.execute("BEGIN TRANSACTION")
+            try:
+                waiting.set_aside(self.con, file, why, store.utcnow())
+                self.con.execute("COMMIT")
+            except BaseException:
+                self.con.execute("ROLLBACK")
+                raise
 
     def check(self, root: str | Path | None = None) -> CheckReport:
         """Re-hash loaded files on disk, recount rows, and compare the published copy with

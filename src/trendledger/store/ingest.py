@@ -31,6 +31,7 @@ from sqlglot import exp
 
 from trendledger.errors import InputError, StoreError
 from trendledger.spec import FLOATS, NUMERIC, Spec
+from trendledger.store import waiting
 from trendledger.store.db import first_row, utcnow
 from trendledger.store.paths import PathTemplate, expand, relative_to_root
 from trendledger.version import __version__
@@ -46,7 +47,7 @@ class FileOutcome:
     """What happened to one file of a batch."""
 
     path: str
-    status: str  # loaded | skipped | rejected | unchanged
+    status: str  # loaded | skipped | rejected | unchanged | waiting | set aside
     rows: int = 0
     message: str | None = None
     file_id: int | None = None
@@ -65,6 +66,8 @@ class BatchSummary:
     unchanged: int = 0
     rejected: int = 0
     replaced: int = 0
+    waiting: int = 0
+    set_aside: int = 0
     started_at: str | None = None
     finished_at: str | None = None
     outcomes: list[FileOutcome] = field(default_factory=list)
@@ -86,7 +89,7 @@ class _Candidate:
     problem: InputError | None = None
     file_id: int = 0
     link: str = ""
-    decision: str = "load"  # load | skip | unchanged | bad
+    decision: str = "load"  # load | skip | unchanged | waiting | aside
     note: str | None = None
 
 
@@ -567,6 +570,7 @@ def append(
     replace: bool = False,
     skip_bad: bool = False,
     rehash: bool = False,
+    retry_rejected: bool = False,
     command: str | None = None,
     progress: Progress | None = None,
     base: Path | None = None,
@@ -574,7 +578,9 @@ def append(
     """Append the files matched by ``patterns`` (default: the spec's template) as one batch.
 
     Raises :class:`InputError` naming the first bad file unless ``skip_bad``;
-    in that case good files land and bad ones are recorded as rejected.
+    in that case good files land and bad ones are recorded as rejected. Either
+    way a refused file waits (waiting.py): later appends pass over it until its
+    content changes, or ``retry_rejected`` asks for it.
     """
     started = utcnow()
     root = root.resolve()
@@ -587,6 +593,7 @@ def append(
     else:
         paths = expand([template.glob], root)
     known = _current(con)
+    refusals = waiting.open_refusals(con)
 
     cands: list[_Candidate] = []
     total = len(paths)
@@ -624,6 +631,17 @@ def append(
         if (prev is not None and not rehash and prev[2] == c.size and prev[3] == c.mtime):
             c.decision = "unchanged"
             continue
+        refused = refusals.get(rel)
+        if retry_rejected or (replace and prev is not None and prev[4] == "loaded"):
+            refused = None
+        if refused is not None:
+            c.note = refused.set_aside or refused.message
+            if refused.set_aside is not None:
+                c.decision = "aside"
+                continue
+            if not rehash and refused.bytes == c.size and refused.modified_at == c.mtime:
+                c.decision = "waiting"
+                continue
         try:
             c.data = path.read_bytes()
         except OSError as err:
@@ -631,6 +649,9 @@ def append(
             continue
         c.size = len(c.data)
         c.sha256 = hashlib.sha256(c.data).hexdigest()
+        if refused is not None and refused.sha256 == c.sha256:
+            c.decision = "waiting"
+            continue
         if prev is not None:
             prev_id, prev_hash, _, _, prev_status = prev
             if prev_hash == c.sha256:
@@ -654,8 +675,40 @@ def append(
         progress("hash", total, total)
 
     _field_problems(con, spec, cands)
-    return _write(con, spec, cands, started=started, skip_bad=skip_bad, command=command,
-                  progress=progress)
+    try:
+        return _write(con, spec, cands, started=started, skip_bad=skip_bad, command=command,
+                      progress=progress)
+    except InputError:
+        _remember_refused(con, cands)
+        raise
+
+
+def _refused(cands: list[_Candidate]) -> list[tuple[str, str, int, dt.datetime | None, str]]:
+    """Refused files with known content: what waiting.record keeps."""
+    out = []
+    for c in cands:
+        if c.problem is not None and c.sha256:
+            line = f"line {c.problem.line}: " if c.problem.line is not None else ""
+            out.append((c.relative, c.sha256, c.size, c.mtime,
+                        line + c.problem.detail()))
+    return out
+
+
+def _remember_refused(con: duckdb.DuckDBPyConnection, cands: list[_Candidate]) -> None:
+    """After a refused batch, note the bad files in their own small transaction.
+
+    The data and the lineage are untouched (the batch did not happen); only the
+    refusal is kept, so that tomorrow's plain append passes over the same bytes.
+    """
+    refused = _refused(cands)
+    if not refused:
+        return
+    try:
+        con.execute("BEGIN TRANSACTION")
+        waiting.record(con, refused, utcnow())
+        con.execute("COMMIT")
+    except duckdb.Error:
+        rollback_quietly(con)  # the refusal itself is what the user must hear about
 
 
 def _first_problem(cands: list[_Candidate]) -> InputError | None:
@@ -669,7 +722,8 @@ def _first_problem(cands: list[_Candidate]) -> InputError | None:
         first.message + more,
         file=first.file, line=first.line, column=first.column,
         hint=(first.hint + "; " if first.hint else "")
-        + "nothing was written; fix the file or pass --skip-bad to load the good ones",
+        + "nothing was written; fix the file or pass --skip-bad to load the good ones; "
+        "until its content changes, later appends pass over it (--retry-rejected tries it)",
     )
 
 
@@ -691,9 +745,11 @@ def _write(
     if not to_load and not skipped and not any(c.problem for c in cands):
         return BatchSummary(
             batch_id=None, status="nothing new", unchanged=len(unchanged),
+            waiting=sum(c.decision == "waiting" for c in cands),
+            set_aside=sum(c.decision == "aside" for c in cands),
             started_at=started.isoformat(timespec="seconds"),
             finished_at=utcnow().isoformat(timespec="seconds"),
-            outcomes=[FileOutcome(c.relative, "unchanged") for c in unchanged],
+            outcomes=[_passed_over(c) for c in cands],
         )
 
     where = database_path(con)
@@ -727,6 +783,12 @@ def _write(
             return summary
 
 
+def _passed_over(c: _Candidate) -> FileOutcome:
+    """The outcome of a file that gets no lineage row: unchanged, waiting or set aside."""
+    status = {"unchanged": "unchanged", "waiting": "waiting", "aside": "set aside"}[c.decision]
+    return FileOutcome(c.relative, status, message=c.note if status != "unchanged" else None)
+
+
 def _transaction(
     con: duckdb.DuckDBPyConnection,
     spec: Spec,
@@ -746,7 +808,7 @@ def _transaction(
     assert batch_id is not None and next_file is not None
     bid, fid = int(batch_id[0]), int(next_file[0])
     for c in cands:
-        if c.decision != "unchanged" or c.problem is not None:
+        if c.decision in ("load", "skip") or c.problem is not None:
             c.file_id = fid  # only files that get a lineage row take an id
             fid += 1
 
@@ -810,8 +872,8 @@ def _transaction(
     lineage = []
     message: str | None
     for c in cands:
-        if c.decision == "unchanged" and c.problem is None:
-            outcomes.append(FileOutcome(c.relative, "unchanged"))
+        if c.decision in ("unchanged", "waiting", "aside") and c.problem is None:
+            outcomes.append(_passed_over(c))
             continue
         if c.problem is not None:
             line = f"line {c.problem.line}: " if c.problem.line is not None else ""
@@ -833,18 +895,22 @@ def _transaction(
              "message": "object"}
         )
         _insert_frame(con, "ingest_files", frame)
+    waiting.record(con, _refused(cands), now)
+    waiting.close(con, {c.relative: c.file_id for c in loaded}, now)
     total_rows = sum(o.rows for o in outcomes)
     n_rejected = sum(1 for o in outcomes if o.status == "rejected")
     status = "partial" if n_rejected else "committed"
     finished = utcnow()
     con.execute(
-        "INSERT INTO ingest_batches VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, NULL, NULL)",
+        "INSERT INTO ingest_batches VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, NULL, NULL, ?)",
         [bid, started, finished, status, len(loaded), total_rows, len(skipped), n_rejected,
-         __version__, spec.digest, command],
+         __version__, spec.digest, command, waiting.os_user()],
     )
     return BatchSummary(
         batch_id=bid, status=status, files=len(loaded), rows=total_rows, skipped=len(skipped),
         unchanged=len(unchanged), rejected=n_rejected, replaced=len(replaced),
+        waiting=sum(c.decision == "waiting" for c in cands),
+        set_aside=sum(c.decision == "aside" for c in cands),
         started_at=started.isoformat(timespec="seconds"),
         finished_at=finished.isoformat(timespec="seconds"), outcomes=outcomes,
     )
