@@ -24,7 +24,9 @@ is written down here, and test_hostile_input.py pins it with a plain example.
  6. A record has exactly one field per column. DuckDB also allows a trailing delimiter:
     extra fields at the end of a record are ignored when they are all empty.
  7. An empty field is NULL in every column, quoted ("") or not: DuckDB cannot tell a
-    quoted empty string from a missing value, and the csv module cannot either.
+    quoted empty string from a missing value, and the csv module cannot either. So is
+    a field that is exactly one of the spec's missing-value texts (by default NaN and
+    nan, quoted or not; ' nan' is not one).
  8. INTEGER. Whitespace (space, \\t, \\n, \\r, \\v, \\f) around the value is ignored, but a
     field of only whitespace is refused, not NULL. Decimal notation as in rule 10, or
     0x/0b hexadecimal/binary digits. The value must be whole: '12.0' and '1e3' load
@@ -33,9 +35,10 @@ is written down here, and test_hostile_input.py pins it with a plain example.
     double precision ('1.0000000000000000001') passes as the whole number. It must
     fit in 32 bits.
  9. DOUBLE. Whitespace as for INTEGER; decimal notation as in rule 10, read like
-    Python's float(). NaN and infinities, written or reached by overflow ('1e400'),
-    are refused by the store on purpose (ingest._nonfinite_problems). A locale comma
-    ('3,14') is no number: it is refused (or, with ',' as delimiter, splits the field).
+    Python's float(). Other spellings of NaN ('NAN', '+nan') and infinities, written
+    or reached by overflow ('1e400'), are refused by the store on purpose
+    (ingest._nonfinite_problems). A locale comma ('3,14') is no number: it is refused
+    (or, with ',' as delimiter, splits the field).
 10. Decimal notation: optional sign, digits with single underscores between digits,
     optional fraction, optional exponent ('-1_000.5e-3', '.5', '5.'). Only ASCII digits.
 11. VARCHAR. The field's text exactly: spaces, control characters and NUL included.
@@ -180,7 +183,8 @@ def _typed(record: list[str]) -> Row:
         record = record[:len(COLUMNS)]  # rule 6
     if len(record) != len(COLUMNS):
         raise Refused(f"{len(record)} fields")
-    cycle, capacity, note = record
+    # rule 7: the default missing-value texts (spec.MISSING) read as empty
+    cycle, capacity, note = ("" if f in ("NaN", "nan") else f for f in record)
     return integer(cycle), double(capacity), (note if note != "" else None)
 
 

@@ -96,7 +96,7 @@ def test_field_that_is_not_a_date_is_refused(lab: Lab) -> None:
         (b"cycle,capacity_ah\n1,3.0\n2\n", 3, "Expected Number of Columns"),
         (b"cycle,capacity_ah\n1,3.0\n2,2.\xff9\n", 3, "not UTF-8"),
         (b"", None, "empty"),
-        (b"cycle,capacity_ah\n1,nan\n", None, "NaN"),
+        (b"cycle,capacity_ah\n1,+nan\n", None, "NaN"),
         (b"cycle,capacity_ah\n1,inf\n", None, "infinite"),
         (b"cycle,capacity_ah\n1,\"3.0\n", None, None),
     ],

@@ -392,12 +392,12 @@ def test_rules_that_follow_duckdb(bench: Bench, body: bytes, rows: list[tuple]) 
         (b"2147483648,1,x\n", "INTEGER"),
         (b" ,1,x\n", "INTEGER"),
         (b'1,"3,14",x\n', "DOUBLE"),
-        (b"1,NaN,x\n", "NaN or an infinite value"),
+        (b"1,NAN,x\n", "NaN or an infinite value"),
         (b"1,-Infinity,x\n", "NaN or an infinite value"),
         (b"1,1e400,x\n", "NaN or an infinite value"),
         (b"1,2,x, \n", "Expected Number of Columns"),
     ],
-    ids=["half", "negative-half", "small-fraction", "too-big", "blank", "locale-comma", "nan",
+    ids=["half", "negative-half", "small-fraction", "too-big", "blank", "locale-comma", "NAN",
          "minus-infinity", "overflow", "non-empty-extra-field"],
 )
 def test_values_the_store_refuses(bench: Bench, body: bytes, words: str) -> None:

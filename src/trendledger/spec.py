@@ -40,6 +40,9 @@ FIELD = re.compile(r"\{([^{}]*)\}")
 GLOB_CHARS = set("*?[]")
 # Names the store uses for its own columns.
 RESERVED = {"file_id"}
+#: Cell texts read as missing (NULL) when the spec names none: what instruments and
+#: spreadsheets write for "no value".
+MISSING = ("", "NaN", "nan")
 
 
 @dataclass(frozen=True)
@@ -73,10 +76,23 @@ class Source:
     columns: dict[str, str]
     fields: dict[str, str]
     delimiter: str | None = None
+    #: the header (or JSON key, or Parquet column) each column is read from, when it is
+    #: not the column's own name: {"capacity_ah": "Discharge_Capacity(Ah)"}
+    headers: dict[str, str] = field(default_factory=dict)
+    #: texts read as missing in csv/tsv files, in every column
+    missing: tuple[str, ...] = MISSING
+    #: the decimal mark of numbers in csv/tsv files: "." or ","
+    decimal: str = "."
+    #: natural key: a row whose key a later file also holds is replaced by that file's row
+    key: tuple[str, ...] = ()
 
     @property
     def compression(self) -> str:
         return "gzip" if self.files.endswith(".gz") else "none"
+
+    def header(self, name: str) -> str:
+        """The name a column has in the files."""
+        return self.headers.get(name, name)
 
 
 @dataclass(frozen=True)
@@ -192,7 +208,8 @@ def _number(raw: dict[str, Any], key: str, where: str, path: str | None) -> floa
 
 def _parse_source(doc: dict[str, Any], path: str | None) -> Source:
     raw = _table(doc, "source", path)
-    _unknown_keys(raw, {"files", "format", "columns", "fields", "delimiter"}, "[source]", path)
+    _unknown_keys(raw, {"files", "format", "columns", "fields", "delimiter", "missing",
+                        "decimal", "key"}, "[source]", path)
     files = raw.get("files")
     if not isinstance(files, str) or not files.strip():
         raise SpecError("[source] files: give a path template such as \"in/{day}/{unit}.csv\"",
@@ -228,9 +245,36 @@ def _parse_source(doc: dict[str, Any], path: str | None) -> Source:
     if not columns_raw:
         raise SpecError("[source.columns] declares no column", file=path)
     columns: dict[str, str] = {}
+    headers: dict[str, str] = {}
     for name, typ in columns_raw.items():
         _check_name(name, "[source.columns]", path)
-        columns[name] = normalise_type(typ, f"[source.columns] {name}", path)
+        where = f"[source.columns] {name}"
+        if isinstance(typ, dict):
+            _unknown_keys(typ, {"type", "header"}, where, path)
+            header = typ.get("header")
+            if header is not None:
+                if not isinstance(header, str) or not header.strip() or header != header.strip():
+                    raise SpecError(f"{where}: header must be the column's name as the files "
+                                    "write it, without spaces around it", file=path)
+                if header != name:
+                    headers[name] = header
+            typ = typ.get("type")
+        columns[name] = normalise_type(typ, where, path)
+    seen_headers: dict[str, str] = {}
+    for name in columns:
+        head = headers.get(name, name)
+        if head.lower() in seen_headers:
+            raise SpecError(f"[source.columns] {name}: header {head!r} is already read by "
+                            f"{seen_headers[head.lower()]}", file=path)
+        seen_headers[head.lower()] = name
+    missing = _missing(raw.get("missing"), fmt, path)
+    decimal = raw.get("decimal", ".")
+    if decimal not in (".", ","):
+        raise SpecError("[source] decimal: \".\" or \",\"", file=path)
+    if decimal == "," and (fmt not in ("csv", "tsv") or (delimiter or
+                                                          ("\t" if fmt == "tsv" else ",")) == ","):
+        raise SpecError("[source] decimal = \",\": for csv or tsv files whose delimiter is not a "
+                        "comma; add delimiter = \";\"", file=path)
     fields_raw = _table(raw, "fields", path, required=False)
     fields: dict[str, str] = {}
     seen: set[str] = set()
@@ -254,7 +298,40 @@ def _parse_source(doc: dict[str, Any], path: str | None) -> Source:
             raise SpecError(f"name {name!r} is declared twice (as a column and a field, or in "
                             "two cases)", file=path)
         lowered[name.lower()] = name
-    return Source(files=files, format=fmt, columns=columns, fields=fields, delimiter=delimiter)
+    key = _key(raw.get("key"), {**columns, **fields}, path)
+    return Source(files=files, format=fmt, columns=columns, fields=fields, delimiter=delimiter,
+                  headers=headers, missing=missing, decimal=decimal, key=key)
+
+
+def _key(value: Any, known: dict[str, str], path: str | None) -> tuple[str, ...]:
+    """The natural key: declared columns or template fields that name one row."""
+    if value is None:
+        return ()
+    if isinstance(value, str):
+        value = [value]
+    if not isinstance(value, list) or not value or not all(isinstance(v, str) for v in value):
+        raise SpecError("[source] key: a list of columns or fields, e.g. [\"cell\", \"cycle\"]",
+                        file=path)
+    for name in value:
+        if name not in known:
+            raise SpecError(f"[source] key: {name!r} is not a declared column or field",
+                            file=path, hint=did_you_mean(name, list(known)))
+    if len(set(value)) != len(value):
+        raise SpecError("[source] key lists a column twice", file=path)
+    return tuple(value)
+
+
+def _missing(value: Any, fmt: str, path: str | None) -> tuple[str, ...]:
+    """The missing-value texts: a list of strings, for csv and tsv (JSON and Parquet have null)."""
+    if value is None:
+        return MISSING
+    if fmt not in ("csv", "tsv"):
+        raise SpecError("[source] missing: for csv or tsv files; JSON and Parquet files write "
+                        "null for a missing value", file=path)
+    if not isinstance(value, list) or not value or not all(isinstance(v, str) for v in value):
+        raise SpecError("[source] missing: a list of texts, e.g. [\"\", \"NaN\", \"-9999\"]",
+                        file=path)
+    return tuple(dict.fromkeys(value))
 
 
 def _guess_format(files: str) -> str:

@@ -147,7 +147,7 @@ def _check_header(spec: Spec, data: bytes, path: str) -> None:
     except csv.Error as err:
         raise InputError(f"the header cannot be read ({err})", file=path, line=1) from err
     names = [n.strip() for n in names]
-    want = list(spec.source.columns)
+    want = [spec.source.header(n) for n in spec.source.columns]
     if names != want:
         missing = [n for n in want if n not in names]
         extra = [n for n in names if n not in want]
@@ -204,10 +204,34 @@ def _check_quotes(spec: Spec, text: str, path: str) -> None:
             raise InputError("a quote opened here is never closed", file=path, line=line)
 
 
+def _check_line_endings(spec: Spec, text: str, path: str) -> None:
+    """Refuse a file that mixes CRLF and LF line ends, naming the first line that differs.
+
+    DuckDB fixes one line ending per file and otherwise fails with "the CSV parser
+    state machine reached an invalid state" and no line. Line breaks inside quoted
+    fields do not count: they are data.
+    """
+    if "\r\n" not in text or "\n" not in text.replace("\r\n", ""):
+        return
+    masked = _mask_quoted(spec, text) if '"' in text else text
+    ends = [(m.start(), m.group(0)) for m in re.finditer(r"\r\n|(?<!\r)\n", masked)]
+    if not ends or all(kind == ends[0][1] for _, kind in ends):
+        return
+    first_kind = ends[0][1]
+    pos, kind = next((p, k) for p, k in ends if k != first_kind)
+    line = text.count("\n", 0, pos) + 1
+    name = {"\r\n": "CRLF (Windows)", "\n": "LF (Unix)"}
+    raise InputError(
+        f"this line ends with {name[kind]} but line {text.count(chr(10), 0, ends[0][0]) + 1} "
+        f"with {name[first_kind]}; save the file with one kind of line ending",
+        file=path, line=line,
+    )
+
+
 def _check_jsonl(spec: Spec, data: bytes, path: str) -> None:
     """Every object must carry exactly the declared keys: DuckDB would fill NULLs silently."""
     raw = gzip.decompress(data) if spec.source.compression == "gzip" else data
-    want = set(spec.source.columns)
+    want = {spec.source.header(n) for n in spec.source.columns}
     for number, line in enumerate(io.BytesIO(raw), start=1):
         if not line.strip():
             continue
@@ -229,7 +253,7 @@ def _check_jsonl(spec: Spec, data: bytes, path: str) -> None:
             )
             raise InputError(f"keys do not match the spec ({what})", file=path, line=number)
         for name, typ in spec.source.columns.items():
-            _check_json_number(obj[name], name, typ, path, number)
+            _check_json_number(obj[spec.source.header(name)], name, typ, path, number)
 
 
 #: Column types DuckDB would fill from a JSON number by rounding it (1.5 -> 2, true -> 1).
@@ -261,6 +285,7 @@ def _inspect(spec: Spec, cand: _Candidate) -> None:
         text = _check_utf8(spec, cand.data, cand.relative)
         _check_header(spec, cand.data, cand.relative)
         _check_quotes(spec, text, cand.relative)
+        _check_line_endings(spec, text, cand.relative)
     elif fmt == "jsonl":
         _check_jsonl(spec, cand.data, cand.relative)
     elif fmt == "parquet" and not cand.data.startswith(b"PAR1"):
@@ -305,21 +330,26 @@ def _read_call(spec: Spec, *, rejects: bool = False) -> str:
         # '2.5' where DuckDB would round it; the rejects read keeps the declared types
         # so that DuckDB names the line of a value that is no number at all.
         cols = exp.Struct(expressions=[
-            exp.PropertyEQ(this=exp.Literal.string(n), expression=exp.Literal.string(
+            exp.PropertyEQ(this=exp.Literal.string(src.header(n)), expression=exp.Literal.string(
                 "VARCHAR" if t in INTEGERS and not rejects else t))
             for n, t in src.columns.items()
         ]).sql("duckdb")
         delim = src.delimiter or ("\t" if src.format == "tsv" else ",")
         delim_sql = exp.Literal.string(delim).sql("duckdb")
+        # The spec's missing-value texts, as a list literal of quoted strings.
+        nulls = exp.Array(expressions=[exp.Literal.string(t) for t in src.missing]).sql("duckdb")
+        decimal = ", decimal_separator=','" if src.decimal == "," else ""
         extra = (", store_rejects=true, ignore_errors=true, rejects_table='tl_rejects', "
                  "rejects_scan='tl_reject_scans'") if rejects else ""
         return (
             f"read_csv($links, columns={cols}, auto_detect=false, header=true, "
-            f"delim={delim_sql}, quote='\"', escape='\"', filename=true{comp}{extra})"
+            f"delim={delim_sql}, quote='\"', escape='\"', nullstr={nulls}{decimal}, "
+            f"filename=true{comp}{extra})"
         )
     if src.format == "jsonl":
         cols = exp.Struct(expressions=[
-            exp.PropertyEQ(this=exp.Literal.string(n), expression=exp.Literal.string(t))
+            exp.PropertyEQ(this=exp.Literal.string(src.header(n)),
+                           expression=exp.Literal.string(t))
             for n, t in src.columns.items()
         ]).sql("duckdb")
         return (f"read_json($links, columns={cols}, format='newline_delimited', "
@@ -354,7 +384,7 @@ def _select_sql(spec: Spec, *, join: bool = True, rejects: bool = False) -> str:
     src = spec.source
     select: list[exp.Expression] = []
     for name, typ in src.columns.items():
-        col = exp.column(name, table="r", quoted=True)
+        col = exp.column(src.header(name), table="r", quoted=True)
         if typ in INTEGERS and (src.format == "parquet"
                                 or (src.format in ("csv", "tsv") and not rejects)):
             select.append(_whole_number(col, name, typ))
@@ -402,7 +432,8 @@ def _insert_frame(con: duckdb.DuckDBPyConnection, table: str, frame: pd.DataFram
         con.unregister("tl_frame")
 
 
-def _reject_problems(con: duckdb.DuckDBPyConnection, by_link: dict[str, _Candidate]) -> None:
+def _reject_problems(con: duckdb.DuckDBPyConnection, spec: Spec,
+                     by_link: dict[str, _Candidate]) -> None:
     """Turn DuckDB's stored CSV rejects into one problem per file (its first bad line)."""
     try:
         rows = con.execute(
@@ -421,8 +452,38 @@ def _reject_problems(con: duckdb.DuckDBPyConnection, by_link: dict[str, _Candida
         text = str(message).split("\n")[0]
         if kind == "INVALID ENCODING":
             text = "bytes that are not UTF-8 text"
-        cand.problem = InputError(text, file=cand.relative, line=int(line),
+        cand.problem = InputError(text, file=cand.relative,
+                                  line=_physical_line(spec, cand, int(line)),
                                   column=column or None)
+
+
+def _physical_line(spec: Spec, cand: _Candidate, record: int) -> int:
+    """The line as an editor counts it. DuckDB counts records (the header is record 1),
+    so a quoted field spanning lines earlier in the file would shift its number."""
+    if cand.data is None:
+        return record
+    raw = cand.data
+    try:
+        if spec.source.compression == "gzip":
+            raw = gzip.decompress(raw)
+        text = raw.decode("utf-8")
+    except (OSError, EOFError, zlib.error, UnicodeDecodeError):
+        return record
+    if '"' not in text:
+        return record
+    masked = _mask_quoted(spec, text)
+    starts = [0] + [m.end() for m in re.finditer(r"\r\n|\n|\r", masked)]
+    if record > len(starts):
+        return record
+    return text.count("\n", 0, starts[record - 1]) + 1
+
+
+def _mask_quoted(spec: Spec, text: str) -> str:
+    """The text with line breaks inside quoted fields blanked (same length, same offsets)."""
+    delim = spec.source.delimiter or ("\t" if spec.source.format == "tsv" else ",")
+    start = "|".join(re.escape(c) for c in (delim, "\r", "\n"))
+    quoted = re.compile(f'(?:^|(?<={start}))[ ]*"[^"]*(?:""[^"]*)*"')
+    return quoted.sub(lambda m: re.sub(r"[\r\n]", " ", m.group(0)), text)
 
 
 def _nonfinite_problems(con: duckdb.DuckDBPyConnection, spec: Spec,
@@ -443,7 +504,8 @@ def _nonfinite_problems(con: duckdb.DuckDBPyConnection, spec: Spec,
             cand = by_id[fid]
             if cand.problem is None:
                 cand.problem = InputError(
-                    "holds NaN or an infinite value; leave the cell empty for a missing value",
+                    "holds NaN or an infinite value; leave the cell empty for a missing value "
+                    "or list the text under [source] missing",
                     file=cand.relative, column=name,
                 )
 
@@ -512,7 +574,7 @@ def _locate_failures(con: duckdb.DuckDBPyConnection, spec: Spec, failed: _ReadFa
                 + _select_sql(spec, join=False, rejects=True),
                 {"links": [c.link for c in failed.cands]},
             )
-            _reject_problems(con, {c.link: c for c in failed.cands})
+            _reject_problems(con, spec, {c.link: c for c in failed.cands})
         except duckdb.Error:
             pass
     if all(c.problem is None for c in failed.cands):
@@ -545,7 +607,7 @@ def _from_duckdb(err: duckdb.Error, relative: str) -> InputError:
 
 def _parquet_problems(con: duckdb.DuckDBPyConnection, spec: Spec,
                       by_link: dict[str, _Candidate]) -> None:
-    want = list(spec.source.columns)
+    want = [spec.source.header(n) for n in spec.source.columns]
     rows = con.execute(
         "SELECT file_name, list(name ORDER BY rowid) FROM "
         "(SELECT *, row_number() OVER () AS rowid FROM parquet_schema($links)) "
