@@ -456,3 +456,56 @@ def test_unreplaceable_published_file_keeps_the_commit_for_the_next_command(
     result = cli("append", "--store", str(lab.store), cwd=lab.root)
     assert result.returncode == 0 and result.stdout.startswith("nothing new"), result.stderr
     assert audit(lab.store).rows == 3
+
+
+MOVER = textwrap.dedent(
+    """
+    import os, signal, sys, threading
+    from trendledger import Ledger
+
+    store, action, delay = sys.argv[1], sys.argv[2], float(sys.argv[3])
+    led = Ledger.open(store)
+    threading.Timer(delay, lambda: os.kill(os.getpid(), signal.SIGKILL)).start()
+    getattr(led, action)(batch=2, why="killed on purpose")
+    os.kill(os.getpid(), signal.SIGKILL)  # done before the timer: die anyway, before close
+    """
+)
+
+
+def _moved(store: Path) -> bool:
+    """True if the big batch sits wholly in the history, False if wholly in measurements."""
+    state = audit(store)
+    assert state.problems == []
+    with Ledger.open(store, read_only=True) as led:
+        con = led.con
+        (status,) = con.execute("SELECT status FROM ingest_batches WHERE batch_id = 2"
+                                ).fetchall()[0]
+        (kept,) = con.execute("SELECT count(*) FROM measurements_history").fetchall()[0]
+        fits = con.execute("SELECT count(*) FROM fit_fade").fetchall()[0][0]
+    if status == "retracted":
+        assert (state.rows, kept, fits) == (BASE_ROWS, 2 * BIG, 5)
+        return True
+    assert (state.rows, kept, fits) == (BASE_ROWS + 2 * BIG, 0, BIG)  # cells c0000-c1999
+    assert state.batch_is_whole(_big_paths(), 2) is True
+    return False
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("delay", [0.0, 0.02, 0.1, 0.4])
+def test_retract_and_restore_killed_move_rows_wholly_or_not_at_all(
+        crash_lab: tuple[Lab, bytes], tmp_path: Path, delay: float) -> None:
+    """The history moves (retract into measurements_history, restore back) are one
+    transaction each: killed at any moment, the batch is wholly on one side."""
+    lab, _ = crash_lab
+    store = _fresh_store(crash_lab, tmp_path)
+    with Ledger.open(store) as led:
+        assert led.append().rows == 2 * BIG
+    for action, done in (("retract", True), ("restore", False)):
+        proc = subprocess.run([sys.executable, "-c", MOVER, str(store), action, str(delay)],
+                              capture_output=True, text=True, cwd=lab.root, timeout=300)
+        assert proc.returncode == -9, proc.stderr
+        tally("kills survived")
+        if _moved(store) != done:  # killed before COMMIT: finish the step by hand
+            with Ledger.open(store) as led:
+                getattr(led, action)(batch=2, why="finished by hand")
+            assert _moved(store) == done

@@ -104,6 +104,8 @@ def append(
     skip_bad: Annotated[bool, typer.Option("--skip-bad", help="Load the good files, record bad ones as rejected (exit 3)")] = False,
     rehash: Annotated[bool, typer.Option("--rehash", help="Hash every file even if size and time are unchanged")] = False,
     retry_rejected: Annotated[bool, typer.Option("--retry-rejected", help="Try again the files refused earlier whose content has not changed")] = False,
+    allow_shrink: Annotated[bool, typer.Option("--allow-shrink", help="Accept a replacement that holds fewer rows than the version it replaces")] = False,
+    why: Annotated[str | None, typer.Option("--why", help="Why rows are replaced; kept with the old rows in the history")] = None,
     as_json: Annotated[bool, typer.Option("--json", help="Print the batch summary as JSON")] = False,
     wait: WaitOpt = DEFAULT_WAIT,
 ) -> None:
@@ -111,7 +113,8 @@ def append(
     try:
         with _open(store, read_only=False, wait=wait) as led:
             summary = led.append(patterns or None, replace=replace, skip_bad=skip_bad,
-                                 rehash=rehash, retry_rejected=retry_rejected, progress=_Bar())
+                                 rehash=rehash, retry_rejected=retry_rejected,
+                                 allow_shrink=allow_shrink, why=why, progress=_Bar())
     except TrendledgerError as err:
         _fail(err)
         return
@@ -125,7 +128,12 @@ def append(
                 f"batch {summary.batch_id}: {summary.files} file(s), {summary.rows} row(s) loaded; "
                 f"{summary.skipped} identical, {summary.unchanged} unchanged, "
                 f"{summary.replaced} replaced, {summary.rejected} rejected"
+                + (f"; {summary.replaced_rows} earlier row(s) replaced by key"
+                   if summary.replaced_rows else "")
             )
+        for o in summary.outcomes:
+            if o.status == "loaded" and o.replaces is not None:
+                typer.echo(f"  {o.path}: {o.message}")
         for o in summary.outcomes:
             if o.status == "rejected":
                 typer.echo(f"  rejected {o.path}: {o.message}", err=True)
@@ -167,7 +175,7 @@ def retract(
     store: StoreOpt = None,
     wait: WaitOpt = DEFAULT_WAIT,
 ) -> None:
-    """Remove the rows of a batch or a file; the lineage keeps them, marked retracted."""
+    """Take the rows of a batch or a file out of the fits; they move to the history table."""
     try:
         with _open(store, read_only=False, wait=wait) as led:
             done = led.retract(why=why, batch=batch, file=file)
@@ -175,6 +183,24 @@ def retract(
         _fail(err)
         return
     typer.echo(f"retracted {done['files']} file(s), {done['rows']} row(s)")
+
+
+@app.command()
+def restore(
+    why: Annotated[str, typer.Option("--why", help="The reason, kept in the lineage")],
+    batch: Annotated[int | None, typer.Option("--batch", help="Undo the retraction of a batch")] = None,
+    file: Annotated[str | None, typer.Option("--file", help="Undo the retraction of one file")] = None,
+    store: StoreOpt = None,
+    wait: WaitOpt = DEFAULT_WAIT,
+) -> None:
+    """Undo a retraction: the rows come back from the history, the lineage reads as before."""
+    try:
+        with _open(store, read_only=False, wait=wait) as led:
+            done = led.restore(why=why, batch=batch, file=file)
+    except TrendledgerError as err:
+        _fail(err)
+        return
+    typer.echo(f"restored {done['files']} file(s), {done['rows']} row(s)")
 
 
 @app.command("waiting")
@@ -240,6 +266,8 @@ def check(
             typer.echo(f"  identical content: {', '.join(group)}")
         for p in report.duplicate_rows:
             typer.echo(f"  repeated rows: {p}")
+        for p in report.repeated_x:
+            typer.echo(f"  repeated x: {p}")
         if report.copies_differ:
             typer.echo("published copy and writer's copy differ:")
             for p in report.copies_differ:

@@ -210,13 +210,17 @@ class Ledger:
         skip_bad: bool = False,
         rehash: bool = False,
         retry_rejected: bool = False,
+        allow_shrink: bool = False,
+        why: str | None = None,
         progress: Progress | None = None,
         command: str | None = None,
     ) -> BatchSummary:
         """Append files (default: every file the spec's template matches) as one batch.
 
         A file refused earlier waits until its content changes; ``retry_rejected``
-        tries such files again (see :meth:`waiting`).
+        tries such files again (see :meth:`waiting`). Rows a replacement takes out move to
+        ``measurements_history`` with ``why``; a replacement with fewer rows than the old
+        version is refused unless ``allow_shrink``.
         """
         refused: InputError | None = None
         with self._changing(progress):
@@ -224,7 +228,8 @@ class Ledger:
                 summary = ingest.append(
                     self.con, self.spec, self.root, patterns,
                     replace=replace, skip_bad=skip_bad, rehash=rehash,
-                    retry_rejected=retry_rejected, progress=progress,
+                    retry_rejected=retry_rejected, allow_shrink=allow_shrink, why=why,
+                    progress=progress,
                     command=command if command is not None else " ".join(sys.argv),
                 )
             except InputError as err:
@@ -246,9 +251,18 @@ class Ledger:
     def retract(
         self, *, why: str, batch: int | None = None, file: str | None = None
     ) -> dict[str, int]:
-        """Remove a batch's or a file's rows; the lineage keeps them, marked retracted."""
+        """Take a batch's or a file's rows out of the fits; they move to
+        ``measurements_history`` and the lineage marks them retracted."""
         with self._changing():
             done = lineage.retract(self.con, why=why, batch=batch, path=file)
+        return done
+
+    def restore(
+        self, *, why: str, batch: int | None = None, file: str | None = None
+    ) -> dict[str, int]:
+        """Undo a retraction: the rows come back and the lineage reads as before it."""
+        with self._changing():
+            done = lineage.restore(self.con, why=why, batch=batch, path=file)
         return done
 
     def waiting(self, every: bool = False) -> pd.DataFrame:

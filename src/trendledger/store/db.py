@@ -30,7 +30,7 @@ from trendledger.views import templates
 
 #: The store's own tables are built by sql/schema/NNN_*.sql, applied in order;
 #: a store records the last one it has and is upgraded in place on a write open.
-SCHEMA_VERSION = 3
+SCHEMA_VERSION = 4
 #: Oldest DuckDB storage format we write, so 1.5.x clients can open the file.
 STORAGE_VERSION = "v1.5.0"
 DEFAULT_NAME = "trendledger.duckdb"

@@ -78,9 +78,11 @@ def apply(con: duckdb.DuckDBPyConnection, old: Spec, new: Spec, note: str | None
         for name, typ in change.added_columns.items():
             column = exp.ColumnDef(this=exp.to_identifier(name, quoted=True),
                                    kind=exp.DataType.build(typ, dialect="duckdb"))
-            alter = exp.Alter(this=exp.to_table("measurements"), kind="TABLE",
-                              actions=[column])
-            con.execute(alter.sql(dialect="duckdb"))
+            # the history keeps the same columns, so that rows move both ways by name
+            for table in ("measurements", "measurements_history"):
+                alter = exp.Alter(this=exp.to_table(table), kind="TABLE",
+                                  actions=[column.copy()])
+                con.execute(alter.sql(dialect="duckdb"))
         store.set_meta(con, "spec", new.text)
         store.set_meta(con, "spec_hash", new.digest)
         con.execute(

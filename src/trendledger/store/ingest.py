@@ -31,7 +31,7 @@ from sqlglot import exp
 
 from trendledger.errors import InputError, StoreError
 from trendledger.spec import FLOATS, NUMERIC, Spec
-from trendledger.store import waiting
+from trendledger.store import history, waiting
 from trendledger.store.db import first_row, utcnow
 from trendledger.store.paths import PathTemplate, expand, relative_to_root
 from trendledger.version import __version__
@@ -66,6 +66,7 @@ class BatchSummary:
     unchanged: int = 0
     rejected: int = 0
     replaced: int = 0
+    replaced_rows: int = 0
     waiting: int = 0
     set_aside: int = 0
     started_at: str | None = None
@@ -633,6 +634,8 @@ def append(
     skip_bad: bool = False,
     rehash: bool = False,
     retry_rejected: bool = False,
+    allow_shrink: bool = False,
+    why: str | None = None,
     command: str | None = None,
     progress: Progress | None = None,
     base: Path | None = None,
@@ -642,7 +645,9 @@ def append(
     Raises :class:`InputError` naming the first bad file unless ``skip_bad``;
     in that case good files land and bad ones are recorded as rejected. Either
     way a refused file waits (waiting.py): later appends pass over it until its
-    content changes, or ``retry_rejected`` asks for it.
+    content changes, or ``retry_rejected`` asks for it. Replaced rows (a changed file
+    with ``replace``, or rows whose natural key a newer file holds) move to the history
+    with ``why``; a replacement with fewer rows than the old version needs ``allow_shrink``.
     """
     started = utcnow()
     root = root.resolve()
@@ -739,7 +744,7 @@ def append(
     _field_problems(con, spec, cands)
     try:
         return _write(con, spec, cands, started=started, skip_bad=skip_bad, command=command,
-                      progress=progress)
+                      progress=progress, options=_Options(allow_shrink, why))
     except InputError:
         _remember_refused(con, cands)
         raise
@@ -789,6 +794,12 @@ def _first_problem(cands: list[_Candidate]) -> InputError | None:
     )
 
 
+@dataclass(frozen=True)
+class _Options:
+    allow_shrink: bool = False
+    why: str | None = None
+
+
 def _write(
     con: duckdb.DuckDBPyConnection,
     spec: Spec,
@@ -798,6 +809,7 @@ def _write(
     skip_bad: bool,
     command: str | None,
     progress: Progress | None,
+    options: _Options,
 ) -> BatchSummary:
     if not skip_bad and (err := _first_problem(cands)) is not None:
         raise err
@@ -821,7 +833,7 @@ def _write(
             try:
                 summary = _transaction(con, spec, cands, to_load, skipped, unchanged, Path(tmp),
                                        started=started, skip_bad=skip_bad, command=command,
-                                       progress=progress)
+                                       progress=progress, options=options)
             except _ReadFailed as failed:
                 rollback_quietly(con)
                 _locate_failures(con, spec, failed)
@@ -845,6 +857,27 @@ def _write(
             return summary
 
 
+def _shrink_problems(con: duckdb.DuckDBPyConnection, cands: list[_Candidate],
+                     allow: bool) -> None:
+    """A replacement holding fewer rows than the version it replaces needs allow_shrink:
+    a cumulative file cut short by the instrument would otherwise drop rows silently."""
+    replacing = {c.replaces: c for c in cands if c.replaces is not None and c.problem is None}
+    if not replacing:
+        return
+    old = dict(con.execute("SELECT file_id, rows FROM ingest_files WHERE list_contains($ids, "
+                           "file_id)", {"ids": list(replacing)}).fetchall())
+    new = dict(con.execute(
+        "SELECT file_id, count(*) FROM measurements WHERE list_contains($ids, file_id) "
+        "GROUP BY file_id", {"ids": [c.file_id for c in replacing.values()]}).fetchall())
+    for prev, c in replacing.items():
+        was, now = int(old.get(prev, 0)), int(new.get(c.file_id, 0))
+        c.note = f"{was} rows -> {now} rows"
+        if now < was and not allow:
+            c.problem = InputError(
+                f"{was} rows -> {now} rows: the new version holds fewer rows than file {prev}",
+                file=c.relative, hint="pass --allow-shrink if the rows should go")
+
+
 def _passed_over(c: _Candidate) -> FileOutcome:
     """The outcome of a file that gets no lineage row: unchanged, waiting or set aside."""
     status = {"unchanged": "unchanged", "waiting": "waiting", "aside": "set aside"}[c.decision]
@@ -864,6 +897,7 @@ def _transaction(
     skip_bad: bool,
     command: str | None,
     progress: Progress | None,
+    options: _Options,
 ) -> BatchSummary:
     batch_id = first_row(con, "SELECT coalesce(max(batch_id), 0) + 1 FROM ingest_batches")
     next_file = first_row(con, "SELECT coalesce(max(file_id), 0) + 1 FROM ingest_files")
@@ -900,6 +934,7 @@ def _transaction(
                     raise  # a full disk or a read-only folder, not a bad file
                 raise _ReadFailed(good, err) from err
             _nonfinite_problems(con, spec, {c.file_id: c for c in good})
+            _shrink_problems(con, good, options.allow_shrink)
         if progress:
             progress("read", len(to_load), len(to_load))
     if not skip_bad and (problem := _first_problem(cands)) is not None:
@@ -920,15 +955,23 @@ def _transaction(
     now = utcnow()
     replaced = [c for c in loaded if c.replaces is not None]
     for c in replaced:
-        con.execute("DELETE FROM measurements WHERE file_id = ?", [c.replaces])
+        assert c.replaces is not None
+        # the old rows are kept in measurements_history, not deleted (history.py)
+        history.move(con, [c.replaces], how="replaced", why=options.why, now=now, batch=bid,
+                     by_file=c.file_id)
+        because = f": {options.why}" if options.why else ""
         con.execute(
             "UPDATE ingest_files SET status = 'replaced', changed_at = ?, "
             "message = ? WHERE file_id = ?",
-            [now, f"replaced by file {c.file_id} in batch {bid}", c.replaces],
+            [now, f"replaced by file {c.file_id} in batch {bid}{because}", c.replaces],
         )
+    by_key = history.supersede(con, spec.source.key, [c.file_id for c in loaded], now=now,
+                               batch=bid, why=options.why) if spec.source.key and loaded else {}
+    losers = history.superseded_files(con) if by_key else []
     # moments.py: the fits' stored sums follow the final rows of the batch
     moments.update(con, spec, [c.file_id for c in loaded],
-                   [c.replaces for c in replaced if c.replaces is not None])
+                   [c.replaces for c in replaced if c.replaces is not None]
+                   + [i for i in losers if i < min(c.file_id for c in loaded)])
 
     outcomes: list[FileOutcome] = []
     lineage = []
@@ -944,7 +987,12 @@ def _transaction(
             status, rows, message = "skipped", 0, c.note
         else:
             status, rows = "loaded", int(counts.get(c.file_id, 0))
-            message = f"replaces file {c.replaces}" if c.replaces is not None else None
+            notes = []
+            if c.replaces is not None:
+                notes.append(f"replaces file {c.replaces} ({c.note})")
+            if by_key.get(c.file_id):
+                notes.append(f"replaces {by_key[c.file_id]} row(s) of earlier files by key")
+            message = "; ".join(notes) or None
         outcomes.append(FileOutcome(c.relative, status, rows, message, c.file_id, c.replaces))
         lineage.append([c.file_id, bid, c.relative, c.sha256, c.size, c.mtime, rows, status,
                         message, c.replaces, None])
@@ -971,6 +1019,7 @@ def _transaction(
     return BatchSummary(
         batch_id=bid, status=status, files=len(loaded), rows=total_rows, skipped=len(skipped),
         unchanged=len(unchanged), rejected=n_rejected, replaced=len(replaced),
+        replaced_rows=sum(by_key.values()),
         waiting=sum(c.decision == "waiting" for c in cands),
         set_aside=sum(c.decision == "aside" for c in cands),
         started_at=started.isoformat(timespec="seconds"),

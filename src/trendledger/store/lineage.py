@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import hashlib
+import json
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any
@@ -12,6 +13,7 @@ import pandas as pd
 from sqlglot import exp
 
 from trendledger.errors import InputError, StoreError, first_line
+from trendledger.store import history
 from trendledger.store.db import first_row, stored_spec, utcnow
 from trendledger.store.ingest import cannot_write, database_path, rollback_quietly
 from trendledger.views import moments
@@ -50,7 +52,8 @@ def retract(
     batch: int | None = None,
     path: str | None = None,
 ) -> dict[str, int]:
-    """Remove the rows of a batch or of one file; the lineage keeps them as 'retracted'."""
+    """Take the rows of a batch or of one file out of the fits; the lineage marks them
+    'retracted' and the rows move to measurements_history, so ``restore`` can undo it."""
     if (batch is None) == (path is None):
         raise InputError("name either a batch or a file to retract")
     if not why.strip():
@@ -82,8 +85,22 @@ def retract(
             con, "SELECT count(*) FROM measurements WHERE list_contains($ids, file_id)",
             {"ids": ids},
         )
-        con.execute("DELETE FROM measurements WHERE list_contains($ids, file_id)", {"ids": ids})
+        # what the lineage said before, so that restore can put it back exactly
+        before = {
+            "files": [[int(r[0]), r[1], r[2], r[3].isoformat() if r[3] else None]
+                      for r in con.execute(
+                          "SELECT file_id, status, message, changed_at FROM ingest_files "
+                          "WHERE list_contains($ids, file_id)", {"ids": ids}).fetchall()],
+            "batch": [list(r[:1]) + [r[1].isoformat() if r[1] else None, r[2]]
+                      for r in con.execute(
+                          "SELECT status, retracted_at, retract_reason FROM ingest_batches "
+                          "WHERE batch_id = ?", [batch]).fetchall()] if batch is not None else [],
+        }
+        history.move(con, ids, how="retracted", why=why, now=now, batch=batch)
         moments.update(con, stored_spec(con), [], ids)  # moments.py: the fits' stored sums
+        history.event(con, "retract", now=now, batch=batch, files=ids,
+                      rows=int(removed[0]) if removed else 0, reason=why,
+                      before=json.dumps(before))
         con.execute(
             "UPDATE ingest_files SET status = 'retracted', changed_at = $now, message = $why "
             "WHERE list_contains($ids, file_id)",
@@ -106,6 +123,82 @@ def retract(
     return {"files": len(ids), "rows": int(removed[0]) if removed else 0}
 
 
+def restore(
+    con: duckdb.DuckDBPyConnection,
+    *,
+    why: str,
+    batch: int | None = None,
+    path: str | None = None,
+) -> dict[str, int]:
+    """Undo a retraction: the rows come back from measurements_history and the lineage rows
+    of the batch or file read as they did before it; tl_events logs the undoing."""
+    if (batch is None) == (path is None):
+        raise InputError("name either a batch or a file to restore")
+    if not why.strip():
+        raise InputError("say why with --why; the reason is kept in the lineage")
+    only: int | None = None
+    if batch is not None:
+        found = first_row(con, "SELECT status FROM ingest_batches WHERE batch_id = ?", [batch])
+        if found is None:
+            raise StoreError(f"there is no batch {batch}")
+        if found[0] != "retracted":
+            raise StoreError(f"batch {batch} is not retracted")
+        event = first_row(
+            con, "SELECT before FROM tl_events WHERE action = 'retract' AND batch_id = ? "
+            "ORDER BY event_id DESC LIMIT 1", [batch])
+    else:
+        row = first_row(
+            con, "SELECT file_id FROM ingest_files WHERE path = ? AND status = 'retracted' "
+            "ORDER BY file_id DESC LIMIT 1", [path])
+        if row is None:
+            raise StoreError(f"file {path!r} is not retracted",
+                             hint="paths are relative to the spec's folder; see 'lineage --files'")
+        only = int(row[0])
+        event = first_row(
+            con, "SELECT before FROM tl_events WHERE action = 'retract' AND "
+            "list_contains(file_ids, ?) ORDER BY event_id DESC LIMIT 1", [row[0]])
+    if event is None or event[0] is None:
+        raise StoreError("this retraction was made before retracted rows were kept; "
+                         "its rows are gone", hint="append the files again after changing them")
+    before = json.loads(event[0])
+    files = [f for f in before["files"] if f[1] != "retracted"]
+    if only is not None:
+        files = [f for f in files if f[0] == only]
+    ids = [int(f[0]) for f in files]
+    again = con.execute(
+        "SELECT o.path, n.file_id FROM ingest_files AS o JOIN ingest_files AS n "
+        "ON n.path = o.path AND n.file_id > o.file_id AND n.status = 'loaded' "
+        "WHERE list_contains($ids, o.file_id) ORDER BY o.path",
+        {"ids": ids}).fetchall()
+    if again:
+        raise StoreError(f"{again[0][0]} was loaded again since, as file {again[0][1]}",
+                         hint="retract that file first, or leave the retraction as it is")
+    now = utcnow()
+    where = database_path(con)
+    con.execute("BEGIN TRANSACTION")
+    try:
+        rows = history.restore(con, ids)
+        moments.update(con, stored_spec(con), ids, [])  # moments.py: the fits' stored sums
+        for file_id, status, message, changed in files:
+            con.execute("UPDATE ingest_files SET status = ?, message = ?, changed_at = ? "
+                        "WHERE file_id = ?", [status, message, changed, file_id])
+        if batch is not None and before["batch"]:
+            status, retracted_at, reason = before["batch"][0]
+            con.execute("UPDATE ingest_batches SET status = ?, retracted_at = ?, "
+                        "retract_reason = ? WHERE batch_id = ?",
+                        [status, retracted_at, reason, batch])
+        history.event(con, "restore", now=now, batch=batch, files=ids, rows=rows, reason=why)
+    except BaseException:
+        rollback_quietly(con)
+        raise
+    try:
+        con.execute("COMMIT")
+    except duckdb.Error as err:
+        rollback_quietly(con)
+        raise cannot_write(err, where) from err
+    return {"files": len(ids), "rows": rows}
+
+
 @dataclass
 class CheckReport:
     """What ``check`` found; ``ok`` is False when the store and the disk disagree."""
@@ -121,6 +214,10 @@ class CheckReport:
     copies_differ: list[str] = field(default_factory=list)
     copies_compared: bool = False
     copies_note: str = ""
+    #: per fit, groups whose x value comes from more than one file (without a natural key,
+    #: overlapping or cumulative files count such rows twice in every fit); reported, like
+    #: repeated rows, but data as loaded, not a disagreement between store and disk
+    repeated_x: list[str] = field(default_factory=list)
 
     @property
     def ok(self) -> bool:
@@ -133,11 +230,16 @@ class CheckReport:
 def check(con: duckdb.DuckDBPyConnection, root: Path) -> CheckReport:
     """Re-hash every loaded file still on disk and recount its rows in the store."""
     report = CheckReport()
+    # rows a later file replaced by natural key moved to the history; they still count
+    # for the file that brought them
     rows = con.execute(
         """
-        SELECT f.path, f.sha256, f.rows, coalesce(m.n, 0) AS stored
+        SELECT f.path, f.sha256, f.rows, coalesce(m.n, 0) + coalesce(h.n, 0) AS stored
         FROM ingest_files AS f
         LEFT JOIN (SELECT file_id, count(*) AS n FROM measurements GROUP BY file_id) AS m
+          USING (file_id)
+        LEFT JOIN (SELECT file_id, count(*) AS n FROM measurements_history
+                   WHERE removed_how = 'replaced by key' GROUP BY file_id) AS h
           USING (file_id)
         WHERE f.status = 'loaded'
         ORDER BY f.path
@@ -181,6 +283,10 @@ def check(con: duckdb.DuckDBPyConnection, root: Path) -> CheckReport:
         """
     ).fetchall():
         report.duplicate_rows.append(f"{path}: {n} repeated row(s)")
+    spec = stored_spec(con)
+    if not spec.source.key:
+        for fit in spec.fits:
+            report.repeated_x.extend(history.repeated_x(con, fit))
     return report
 
 
