@@ -332,6 +332,7 @@ class Ledger:
         new = load_spec(Path(spec_path))
         with self._changing():
             change = evolve.apply(self.con, self.spec, new, note=note)
+        store.set_zone(self.con, new.source.timezone)
         self.spec = new
         self._meta = store.meta(self.con)
         return change

@@ -11,6 +11,7 @@ import difflib
 import hashlib
 import re
 import tomllib
+import zoneinfo
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -85,6 +86,8 @@ class Source:
     decimal: str = "."
     #: natural key: a row whose key a later file also holds is replaced by that file's row
     key: tuple[str, ...] = ()
+    #: the zone date-time values are read and cut into windows in (never the machine's)
+    timezone: str = "UTC"
 
     @property
     def compression(self) -> str:
@@ -209,7 +212,7 @@ def _number(raw: dict[str, Any], key: str, where: str, path: str | None) -> floa
 def _parse_source(doc: dict[str, Any], path: str | None) -> Source:
     raw = _table(doc, "source", path)
     _unknown_keys(raw, {"files", "format", "columns", "fields", "delimiter", "missing",
-                        "decimal", "key"}, "[source]", path)
+                        "decimal", "key", "timezone"}, "[source]", path)
     files = raw.get("files")
     if not isinstance(files, str) or not files.strip():
         raise SpecError("[source] files: give a path template such as \"in/{day}/{unit}.csv\"",
@@ -300,7 +303,20 @@ def _parse_source(doc: dict[str, Any], path: str | None) -> Source:
         lowered[name.lower()] = name
     key = _key(raw.get("key"), {**columns, **fields}, path)
     return Source(files=files, format=fmt, columns=columns, fields=fields, delimiter=delimiter,
-                  headers=headers, missing=missing, decimal=decimal, key=key)
+                  headers=headers, missing=missing, decimal=decimal, key=key,
+                  timezone=_zone(raw.get("timezone", "UTC"), path))
+
+
+def _zone(value: Any, path: str | None) -> str:
+    """An IANA time zone name, checked against the system's zone database."""
+    if isinstance(value, str) and value and not value.startswith(("/", ".")):
+        try:
+            zoneinfo.ZoneInfo(value)
+            return value
+        except (zoneinfo.ZoneInfoNotFoundError, ValueError):
+            pass
+    raise SpecError(f"[source] timezone: unknown time zone {value!r}; give an IANA name such "
+                    "as \"Europe/Berlin\" or \"UTC\"", file=path)
 
 
 def _key(value: Any, known: dict[str, str], path: str | None) -> tuple[str, ...]:

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import datetime as dt
 import time
+import tomllib
 from collections.abc import Callable
 from pathlib import Path
 from typing import Any
@@ -78,6 +79,7 @@ def connect(
             # Session settings first, then the lock: DuckDB's own progress bar would
             # write to our stdout, and a locked connection can no longer turn it off.
             con.execute("SET enable_progress_bar = false")
+            _spec_zone(con)
             if lock:
                 con.execute("SET lock_configuration = true")
         except duckdb.IOException as err:
@@ -123,6 +125,33 @@ def held_message(err: Exception) -> str:
         holder = " (" + text.split("held in ", 1)[1].splitlines()[0].strip().rstrip(".") + ")"
     return (f"the file is open read-write in another program{holder}; close it there or "
             "open it read-only (duckdb -readonly), then retry or pass --wait SECONDS")
+
+
+def set_zone(con: duckdb.DuckDBPyConnection, zone: str) -> None:
+    """Do date-time arithmetic in ``zone``: DuckDB's default is the machine's zone, so the
+    same store would read a time without offset, or cut a day, differently in each office."""
+    try:
+        con.execute("SET TimeZone = " + exp.Literal.string(zone).sql("duckdb"))
+    except duckdb.Error as err:
+        raise StoreError(f"DuckDB does not know the time zone {zone!r}: {first_line(err)}",
+                         hint="give another IANA name under [source] timezone") from err
+
+
+def _spec_zone(con: duckdb.DuckDBPyConnection) -> None:
+    """Set the zone the stored spec names (default UTC) on a new connection."""
+    try:
+        rows = con.execute("SELECT value FROM tl_meta WHERE key = 'spec'").fetchall()
+    except duckdb.Error:
+        return  # not a store: the caller says so next
+    zone = "UTC"
+    if rows and rows[0][0]:
+        try:
+            source = tomllib.loads(rows[0][0]).get("source", {})
+        except tomllib.TOMLDecodeError:
+            source = {}
+        if isinstance(source, dict) and isinstance(source.get("timezone"), str):
+            zone = source["timezone"]
+    set_zone(con, zone)
 
 
 def first_row(
