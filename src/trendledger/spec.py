@@ -88,6 +88,17 @@ class Source:
     key: tuple[str, ...] = ()
     #: the zone date-time values are read and cut into windows in (never the machine's)
     timezone: str = "UTC"
+    #: columns that accept values written beyond a reporting limit ('<0.05', '>200'), with
+    #: what the column holds for them: "omit" (NULL) or "half" (half the limit, below only)
+    censored: dict[str, str] = field(default_factory=dict)
+
+    def derived(self) -> dict[str, str]:
+        """Columns the store adds for censored columns: which side, and the limit."""
+        out: dict[str, str] = {}
+        for name in self.censored:
+            out[f"{name}_censored"] = "VARCHAR"
+            out[f"{name}_limit"] = "DOUBLE"
+        return out
 
     @property
     def compression(self) -> str:
@@ -128,7 +139,7 @@ class Spec:
     @property
     def all_columns(self) -> dict[str, str]:
         """Columns of the measurements table, in order: file columns, then template fields."""
-        return {**self.source.columns, **self.source.fields}
+        return {**self.source.columns, **self.source.fields, **self.source.derived()}
 
 
 def did_you_mean(word: str, choices: list[str] | tuple[str, ...]) -> str | None:
@@ -249,11 +260,18 @@ def _parse_source(doc: dict[str, Any], path: str | None) -> Source:
         raise SpecError("[source.columns] declares no column", file=path)
     columns: dict[str, str] = {}
     headers: dict[str, str] = {}
+    censored: dict[str, str] = {}
     for name, typ in columns_raw.items():
         _check_name(name, "[source.columns]", path)
         where = f"[source.columns] {name}"
         if isinstance(typ, dict):
-            _unknown_keys(typ, {"type", "header"}, where, path)
+            _unknown_keys(typ, {"type", "header", "censored"}, where, path)
+            treat = typ.get("censored")
+            if treat is not None:
+                if treat not in ("omit", "half"):
+                    raise SpecError(f"{where}: censored must be \"omit\" (store NULL) or "
+                                    "\"half\" (half the limit)", file=path)
+                censored[name] = treat
             header = typ.get("header")
             if header is not None:
                 if not isinstance(header, str) or not header.strip() or header != header.strip():
@@ -263,6 +281,12 @@ def _parse_source(doc: dict[str, Any], path: str | None) -> Source:
                     headers[name] = header
             typ = typ.get("type")
         columns[name] = normalise_type(typ, where, path)
+        if name in censored and columns[name] not in FLOATS and not DECIMAL.match(columns[name]):
+            raise SpecError(f"{where}: censored values need a DOUBLE or DECIMAL column",
+                            file=path)
+        if name in censored and fmt not in ("csv", "tsv"):
+            raise SpecError(f"{where}: censored values ('<0.05') are read from csv or tsv "
+                            "files", file=path)
     seen_headers: dict[str, str] = {}
     for name in columns:
         head = headers.get(name, name)
@@ -295,7 +319,8 @@ def _parse_source(doc: dict[str, Any], path: str | None) -> Source:
             raise SpecError(f"[source.fields] {name}: not a field of the template {files!r}",
                             file=path, hint=did_you_mean(name, names))
     lowered: dict[str, str] = {}
-    for name in [*columns, *fields]:
+    derived = [f"{n}_{part}" for n in censored for part in ("censored", "limit")]
+    for name in [*columns, *fields, *derived]:
         # DuckDB column names are case-insensitive: Cell and cell would collide.
         if name.lower() in lowered:
             raise SpecError(f"name {name!r} is declared twice (as a column and a field, or in "
@@ -304,7 +329,7 @@ def _parse_source(doc: dict[str, Any], path: str | None) -> Source:
     key = _key(raw.get("key"), {**columns, **fields}, path)
     return Source(files=files, format=fmt, columns=columns, fields=fields, delimiter=delimiter,
                   headers=headers, missing=missing, decimal=decimal, key=key,
-                  timezone=_zone(raw.get("timezone", "UTC"), path))
+                  timezone=_zone(raw.get("timezone", "UTC"), path), censored=censored)
 
 
 def _zone(value: Any, path: str | None) -> str:

@@ -57,7 +57,12 @@ def compare(old: Spec, new: Spec, where: str | None = None) -> SpecChange:
                 f"[source.columns] {name}: type {typ} cannot become {n.columns[name]} in place",
                 file=where, hint="add a new column with the new type instead",
             )
-    change = SpecChange(added_columns={k: v for k, v in n.columns.items() if k not in o.columns})
+    change = SpecChange(added_columns={k: v for k, v in {**n.columns, **n.derived()}.items()
+                                       if k not in {**o.columns, **o.derived()}})
+    for name in o.censored:
+        if name not in n.censored:
+            raise SpecError(f"[source.columns] {name}: censored cannot be dropped; stored rows "
+                            "carry its flag", file=where)
     old_fits = {f.name: f for f in old.fits}
     new_fits = {f.name: f for f in new.fits}
     change.added_fits = [name for name in new_fits if name not in old_fits]

@@ -27,6 +27,7 @@ from typing import Any
 
 import duckdb
 import pandas as pd
+import sqlglot
 from sqlglot import exp
 
 from trendledger.errors import InputError, StoreError
@@ -332,7 +333,7 @@ def _read_call(spec: Spec, *, rejects: bool = False) -> str:
         # so that DuckDB names the line of a value that is no number at all.
         cols = exp.Struct(expressions=[
             exp.PropertyEQ(this=exp.Literal.string(src.header(n)), expression=exp.Literal.string(
-                "VARCHAR" if t in INTEGERS and not rejects else t))
+                "VARCHAR" if (t in INTEGERS and not rejects) or n in src.censored else t))
             for n, t in src.columns.items()
         ]).sql("duckdb")
         delim = src.delimiter or ("\t" if src.format == "tsv" else ",")
@@ -384,9 +385,14 @@ def _select_sql(spec: Spec, *, join: bool = True, rejects: bool = False) -> str:
     """SELECT the declared columns (and, joined to the batch's files, fields and file_id)."""
     src = spec.source
     select: list[exp.Expression] = []
+    derived: list[exp.Expression] = []
     for name, typ in src.columns.items():
         col = exp.column(src.header(name), table="r", quoted=True)
-        if typ in INTEGERS and (src.format == "parquet"
+        if name in src.censored:
+            value, side, limit = _censored(col, name, typ, src.censored[name], src.decimal)
+            select.append(value)
+            derived += [side, limit]
+        elif typ in INTEGERS and (src.format == "parquet"
                                 or (src.format in ("csv", "tsv") and not rejects)):
             select.append(_whole_number(col, name, typ))
         elif src.format == "parquet":
@@ -394,19 +400,53 @@ def _select_sql(spec: Spec, *, join: bool = True, rejects: bool = False) -> str:
         else:
             select.append(col)
     if not join:
-        cols = ", ".join(s.sql("duckdb") for s in select)
+        cols = ", ".join(s.sql("duckdb") for s in [*select, *derived])
         return f"SELECT {cols} FROM {_read_call(spec, rejects=rejects)} AS r"
     for name, typ in src.fields.items():
         select.append(exp.cast(exp.column(name, table="f", quoted=True),
                                exp.DataType.build(typ, dialect="duckdb")))
+    select += derived
     select.append(exp.column("file_id", table="f"))
     cols = ", ".join(s.sql("duckdb") for s in select)
     return (f"SELECT {cols} FROM {_read_call(spec)} AS r "
             "JOIN tl_batch_files AS f ON r.filename = f.link")
 
 
+def _censored(col: exp.Expression, name: str, typ: str, treat: str,
+              decimal: str) -> tuple[exp.Expression, exp.Expression, exp.Expression]:
+    """A value written beyond a reporting limit ('<0.05', '>200'): the column holds NULL
+    ("omit") or, below the limit, half the limit ("half"); <name>_censored says which side
+    and <name>_limit holds the limit. Anything else must be a number."""
+    text = f"trim(CAST({col.sql('duckdb')} AS VARCHAR))"
+    number = "replace({t}, ',', '.')" if decimal == "," else "{t}"
+    beyond = f"(starts_with({text}, '<') OR starts_with({text}, '>'))"
+    limit_text = number.format(t=f"trim(substr({text}, 2))")
+    plain_text = number.format(t=text)
+    kind = exp.DataType.build(typ, dialect="duckdb").sql("duckdb")
+    bad = exp.DPipe(this=exp.DPipe(this=exp.Literal.string(f"column {name}: "),
+                                   expression=_parse(text)),
+                    expression=exp.Literal.string(" is neither a number nor a censored value "
+                                                  "such as <0.05")).sql("duckdb")
+    limit = (f"CASE WHEN {beyond} THEN coalesce(TRY_CAST({limit_text} AS DOUBLE), "
+             f"error({bad})) END")
+    below = f"{limit} / 2" if treat == "half" else "NULL"
+    value = (f"CASE WHEN starts_with({text}, '<') THEN CAST({below} AS {kind}) "
+             f"WHEN starts_with({text}, '>') THEN CAST(NULL AS {kind}) "
+             f"WHEN {col.sql('duckdb')} IS NULL THEN CAST(NULL AS {kind}) "
+             f"ELSE coalesce(TRY_CAST({plain_text} AS {kind}), error({bad})) END")
+    side = (f"CASE WHEN starts_with({text}, '<') THEN 'below' "
+            f"WHEN starts_with({text}, '>') THEN 'above' END")
+    return _parse(value), _parse(side), _parse(limit)
+
+
+def _parse(sql: str) -> exp.Expression:
+    tree = sqlglot.parse_one(sql, read="duckdb")
+    assert isinstance(tree, exp.Expression)
+    return tree
+
+
 def _insert_sql(spec: Spec) -> str:
-    names = [*spec.source.columns, *spec.source.fields, "file_id"]
+    names = [*spec.source.columns, *spec.source.fields, *spec.source.derived(), "file_id"]
     targets = ", ".join(exp.to_identifier(n, quoted=True).sql("duckdb") for n in names)
     return f"INSERT INTO measurements ({targets}) {_select_sql(spec)}"
 
