@@ -203,3 +203,38 @@ def test_reader_errors_give_the_physical_line_after_multiline_fields(tmp_path) -
             led.append()
         assert (info.value.line, info.value.column) == (7, "capacity_ah")
         assert str(info.value).startswith("incoming/2026-03-02/c01.csv:7: column capacity_ah")
+
+
+def test_a_column_may_list_its_own_missing_texts(tmp_path) -> None:  # type: ignore[no-untyped-def]
+    spec = CYCLER.replace('cycle = { type = "INTEGER", header = "Cycle_Index" }',
+                          'cycle = { type = "INTEGER", header = "Cycle_Index", missing = ["x"] }'
+                          ).replace('temp_c = { type = "DOUBLE", header = "Temp [°C]" }',
+                                    'temp_c = { type = "DOUBLE", header = "Temp [°C]", '
+                                    'missing = ["-1", "OVR"] }')
+    lab = Lab(tmp_path / "lab", spec)
+    # -1 means "no reading" only for the thermocouple; a capacity of -1 is a value
+    lab.write("incoming/2026-03-02/c01.csv", HEAD + "1,-1,-1\nx,4.9,OVR\n3,4.8,25.5\n4,,NaN\n")
+    with lab.init() as led:
+        led.append()
+        assert _rows(led) == [(1, -1.0, None), (None, 4.9, None), (3, 4.8, 25.5),
+                              (4, None, None)]
+        lab.write("incoming/2026-03-03/c01.csv", HEAD + "5,4.7,hot\n")
+        with pytest.raises(InputError) as info:
+            led.append()
+        assert info.value.file == "incoming/2026-03-03/c01.csv"
+        assert "column temp_c: hot is not a valid DOUBLE" in info.value.message
+        lab.write("incoming/2026-03-03/c01.csv", HEAD + "2.5,4.7,25\n")
+        with pytest.raises(InputError, match="2.5 is not a whole number"):
+            led.append()
+
+
+def test_a_column_missing_list_with_a_decimal_comma(tmp_path) -> None:  # type: ignore[no-untyped-def]
+    spec = CYCLER.replace('temp_c = { type = "DOUBLE", header = "Temp [°C]" }',
+                          'temp_c = { type = "DOUBLE", header = "Temp [°C]", missing = ["-1"] }'
+                          ).replace("[source]\n", '[source]\ndelimiter = ";"\ndecimal = ","\n')
+    lab = Lab(tmp_path / "lab", spec)
+    lab.write("incoming/2026-03-02/c01.csv",
+              HEAD.replace(",", ";") + "1;4,95;-1\n2;4,9;25,25\n")
+    with lab.init() as led:
+        led.append()
+        assert _rows(led) == [(1, 4.95, None), (2, 4.9, 25.25)]

@@ -91,6 +91,8 @@ class Source:
     #: columns that accept values written beyond a reporting limit ('<0.05', '>200'), with
     #: what the column holds for them: "omit" (NULL) or "half" (half the limit, below only)
     censored: dict[str, str] = field(default_factory=dict)
+    #: texts read as missing in one column only, besides ``missing`` (csv and tsv)
+    column_missing: dict[str, tuple[str, ...]] = field(default_factory=dict)
 
     def derived(self) -> dict[str, str]:
         """Columns the store adds for censored columns: which side, and the limit."""
@@ -261,11 +263,14 @@ def _parse_source(doc: dict[str, Any], path: str | None) -> Source:
     columns: dict[str, str] = {}
     headers: dict[str, str] = {}
     censored: dict[str, str] = {}
+    column_missing: dict[str, tuple[str, ...]] = {}
     for name, typ in columns_raw.items():
         _check_name(name, "[source.columns]", path)
         where = f"[source.columns] {name}"
         if isinstance(typ, dict):
-            _unknown_keys(typ, {"type", "header", "censored"}, where, path)
+            _unknown_keys(typ, {"type", "header", "censored", "missing"}, where, path)
+            if typ.get("missing") is not None:
+                column_missing[name] = _missing(typ["missing"], fmt, path, where)
             treat = typ.get("censored")
             if treat is not None:
                 if treat not in ("omit", "half"):
@@ -329,7 +334,8 @@ def _parse_source(doc: dict[str, Any], path: str | None) -> Source:
     key = _key(raw.get("key"), {**columns, **fields}, path)
     return Source(files=files, format=fmt, columns=columns, fields=fields, delimiter=delimiter,
                   headers=headers, missing=missing, decimal=decimal, key=key,
-                  timezone=_zone(raw.get("timezone", "UTC"), path), censored=censored)
+                  timezone=_zone(raw.get("timezone", "UTC"), path), censored=censored,
+                  column_missing=column_missing)
 
 
 def _zone(value: Any, path: str | None) -> str:
@@ -362,15 +368,16 @@ def _key(value: Any, known: dict[str, str], path: str | None) -> tuple[str, ...]
     return tuple(value)
 
 
-def _missing(value: Any, fmt: str, path: str | None) -> tuple[str, ...]:
+def _missing(value: Any, fmt: str, path: str | None,
+             where: str = "[source]") -> tuple[str, ...]:
     """The missing-value texts: a list of strings, for csv and tsv (JSON and Parquet have null)."""
     if value is None:
         return MISSING
     if fmt not in ("csv", "tsv"):
-        raise SpecError("[source] missing: for csv or tsv files; JSON and Parquet files write "
+        raise SpecError(f"{where} missing: for csv or tsv files; JSON and Parquet files write "
                         "null for a missing value", file=path)
     if not isinstance(value, list) or not value or not all(isinstance(v, str) for v in value):
-        raise SpecError("[source] missing: a list of texts, e.g. [\"\", \"NaN\", \"-9999\"]",
+        raise SpecError(f"{where} missing: a list of texts, e.g. [\"\", \"NaN\", \"-9999\"]",
                         file=path)
     return tuple(dict.fromkeys(value))
 

@@ -333,7 +333,8 @@ def _read_call(spec: Spec, *, rejects: bool = False) -> str:
         # so that DuckDB names the line of a value that is no number at all.
         cols = exp.Struct(expressions=[
             exp.PropertyEQ(this=exp.Literal.string(src.header(n)), expression=exp.Literal.string(
-                "VARCHAR" if (t in INTEGERS and not rejects) or n in src.censored else t))
+                "VARCHAR" if (t in INTEGERS and not rejects) or n in src.censored
+                or n in src.column_missing else t))
             for n, t in src.columns.items()
         ]).sql("duckdb")
         delim = src.delimiter or ("\t" if src.format == "tsv" else ",")
@@ -387,12 +388,17 @@ def _select_sql(spec: Spec, *, join: bool = True, rejects: bool = False) -> str:
     select: list[exp.Expression] = []
     derived: list[exp.Expression] = []
     for name, typ in src.columns.items():
-        col = exp.column(src.header(name), table="r", quoted=True)
+        col: exp.Expression = exp.column(src.header(name), table="r", quoted=True)
+        if name in src.column_missing:
+            col = _parse(_column_missing(col, src.column_missing[name]))
+            if name not in src.censored and typ not in INTEGERS:
+                select.append(_typed(col, name, typ, src.decimal))
+                continue
         if name in src.censored:
             value, side, limit = _censored(col, name, typ, src.censored[name], src.decimal)
             select.append(value)
             derived += [side, limit]
-        elif typ in INTEGERS and (src.format == "parquet"
+        elif typ in INTEGERS and (src.format == "parquet" or name in src.column_missing
                                 or (src.format in ("csv", "tsv") and not rejects)):
             select.append(_whole_number(col, name, typ))
         elif src.format == "parquet":
@@ -437,6 +443,25 @@ def _censored(col: exp.Expression, name: str, typ: str, treat: str,
     side = (f"CASE WHEN starts_with({text}, '<') THEN 'below' "
             f"WHEN starts_with({text}, '>') THEN 'above' END")
     return _parse(value), _parse(side), _parse(limit)
+
+
+def _column_missing(col: exp.Expression, tokens: tuple[str, ...]) -> str:
+    """The cell text, NULL when it is one of the column's own missing-value texts."""
+    listed = ", ".join(exp.Literal.string(t).sql("duckdb") for t in tokens)
+    return f"CASE WHEN {col.sql('duckdb')} IN ({listed}) THEN NULL ELSE {col.sql('duckdb')} END"
+
+
+def _typed(col: exp.Expression, name: str, typ: str, decimal: str) -> exp.Expression:
+    """Cast cell text to a column's type, stopping with the column's name at a bad value."""
+    text = col.sql("duckdb")
+    kind = exp.DataType.build(typ, dialect="duckdb").sql("duckdb")
+    if decimal == "," and (typ in FLOATS or typ.startswith("DECIMAL")):
+        text = f"replace({text}, ',', '.')"
+    bad = exp.DPipe(this=exp.DPipe(this=exp.Literal.string(f"column {name}: "),
+                                   expression=_parse(text)),
+                    expression=exp.Literal.string(f" is not a valid {typ}")).sql("duckdb")
+    return _parse(f"CASE WHEN {text} IS NULL THEN NULL WHEN TRY_CAST({text} AS {kind}) IS NULL "
+                  f"THEN error({bad}) ELSE CAST({text} AS {kind}) END")
 
 
 def _parse(sql: str) -> exp.Expression:
