@@ -12,11 +12,12 @@ from typing import Any
 import duckdb
 import pandas as pd
 
-from trendledger.errors import StoreError, TrendledgerError, first_line
+from trendledger.errors import QueryRefused, StoreError, TrendledgerError, first_line
+from trendledger.query import limits
 from trendledger.spec import Spec
 from trendledger.spec import load as load_spec
 from trendledger.store import db as store
-from trendledger.store import evolve, ingest, lineage
+from trendledger.store import evolve, ingest, lineage, sandbox
 from trendledger.store.evolve import SpecChange
 from trendledger.store.ingest import BatchSummary, Progress
 from trendledger.store.lineage import CheckReport
@@ -27,13 +28,8 @@ from trendledger.views import read as fits_mod
 #: Seconds a command waits for another process's lock before giving up.
 DEFAULT_WAIT = 5.0
 #: A read-only connection that cannot touch files or change its own settings.
-LOCKED: dict[str, str | bool] = {
-    "enable_external_access": False,
-    "autoload_known_extensions": False,
-    "autoinstall_known_extensions": False,
-    "python_enable_replacements": False,
-    "lock_configuration": True,
-}
+LOCKED = sandbox.LOCKED
+read_config = sandbox.read_config
 
 
 class Ledger:
@@ -85,7 +81,7 @@ class Ledger:
         """
         target = Path(path)
         con = store.connect(target, read_only=read_only, wait=wait,
-                            config=dict(LOCKED) if read_only else None, trace=trace)
+                            config=read_config(target) if read_only else None, trace=trace)
         return cls(target, con, read_only)
 
     def close(self) -> None:
@@ -180,21 +176,31 @@ class Ledger:
         limit: int | None = None,
         view: str | None = None,
         break_at: float | None = None,
+        timeout: float | None = limits.DEFAULT_TIMEOUT,
     ) -> pd.DataFrame:
         """Per-group fits of ``name`` (optional with one fit); ``view`` picks a companion view.
 
         ``break_at=x`` gives the Chow test for a break at x per group instead (watch.break_test).
+        The read is stopped after ``timeout`` seconds (None: no limit).
         """
         fit = self.spec.fit(name)
-        if break_at is not None:
-            from trendledger.views.watch import break_test
+        try:
+            with limits.time_limit(self.con, timeout, "the fits read"):
+                if break_at is not None:
+                    from trendledger.views.watch import break_test
 
-            if view:
-                raise StoreError("give either a companion view or a break point, not both")
-            return break_test(self.con, fit, break_at, where=where, sort=sort, desc=desc,
-                              limit=limit)
-        target = fit.view + (f"_{view}" if view else "")
-        return fits_mod.read(self.con, target, where=where, sort=sort, desc=desc, limit=limit)
+                    if view:
+                        raise StoreError("give either a companion view or a break point, "
+                                         "not both")
+                    return break_test(self.con, fit, break_at, where=where, sort=sort,
+                                      desc=desc, limit=limit)
+                target = fit.view + (f"_{view}" if view else "")
+                return fits_mod.read(self.con, target, where=where, sort=sort, desc=desc,
+                                     limit=limit)
+        except duckdb.Error as err:
+            # e.g. a --where that is no condition (a text column) or compares text with a number
+            raise QueryRefused(f"the fits read failed: {first_line(err)}",
+                               hint="check the --where condition" if where else None) from err
 
     def watch(self, name: str | None = None) -> pd.DataFrame:
         """Today's alerts of fit ``name`` (all fits when None), newest unit first (watch.alerts)."""
@@ -216,11 +222,22 @@ class Ledger:
         rows = views.listing(self.con)
         return pd.DataFrame(rows, columns=["name", "kind", "fit", "description"])
 
-    def query(self, sql: str, params: dict[str, Any] | None = None) -> pd.DataFrame:
-        """Run one read-only statement with bound named parameters (``$name``)."""
+    def query(
+        self,
+        sql: str,
+        params: dict[str, Any] | None = None,
+        *,
+        timeout: float | None = limits.DEFAULT_TIMEOUT,
+        max_rows: int | None = None,
+    ) -> pd.DataFrame:
+        """Run one read-only statement with bound named parameters (``$name``).
+
+        Stopped after ``timeout`` seconds (None: no limit); with ``max_rows`` at
+        most that many rows are fetched and ``attrs["truncated"]`` says if more were.
+        """
         from trendledger.query.run import run
 
-        return run(self.con, sql, params or {})
+        return run(self.con, sql, params or {}, timeout=timeout, max_rows=max_rows)
 
     def report(
         self,
@@ -230,11 +247,15 @@ class Ledger:
         since: str | date | None = None,
         groups: list[str] | None = None,
         pair: str | None = None,
+        force: bool = False,
     ) -> Path:
-        """Write ``out/index.html`` (self-contained) and its PNG images; returns the page."""
+        """Write ``out/index.html`` (self-contained) and its PNG images; returns the page.
+
+        Files in ``out`` that an earlier report did not write are never replaced
+        unless ``force``."""
         from trendledger.report.build import build
 
-        return build(self, out, name=name, since=since, groups=groups, pair=pair)
+        return build(self, out, name=name, since=since, groups=groups, pair=pair, force=force)
 
     def export(self, folder: str | Path, partition_by: str | None = None) -> dict[str, Any]:
         """Write Parquet data, lineage and every view in Spark/PostgreSQL/Trino/DuckDB SQL to
