@@ -203,6 +203,8 @@ def check(
             typer.echo(f"  missing on disk: {_shown(p)}")
         for p in report.count_mismatch:
             typer.echo(f"  row count: {_shown(p)}")
+        for p in report.unreadable:
+            typer.echo(f"  cannot check: {_shown(p)}")
         for group in report.same_content:
             typer.echo(f"  identical content: {_shown(', '.join(group))}")
         for p in report.duplicate_rows:

@@ -164,7 +164,7 @@ class Ledger:
         if not folder.is_dir():  # every file would read as missing, and check would pass
             raise TrendledgerError("the root folder does not exist", file=str(folder),
                                    hint="pass the folder the data moved to with --root")
-        return lineage.check(self.con, folder)
+        return lineage.check(self.con, folder, self.spec.source.allow)
 
     def fits(
         self,

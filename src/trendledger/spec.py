@@ -73,6 +73,8 @@ class Source:
     columns: dict[str, str]
     fields: dict[str, str]
     delimiter: str | None = None
+    #: folders outside the spec's folder that files may really live in (through links)
+    allow: tuple[str, ...] = ()
 
     @property
     def compression(self) -> str:
@@ -192,7 +194,8 @@ def _number(raw: dict[str, Any], key: str, where: str, path: str | None) -> floa
 
 def _parse_source(doc: dict[str, Any], path: str | None) -> Source:
     raw = _table(doc, "source", path)
-    _unknown_keys(raw, {"files", "format", "columns", "fields", "delimiter"}, "[source]", path)
+    _unknown_keys(raw, {"files", "format", "columns", "fields", "delimiter", "allow"}, "[source]",
+                  path)
     files = raw.get("files")
     if not isinstance(files, str) or not files.strip():
         raise SpecError("[source] files: give a path template such as \"in/{day}/{unit}.csv\"",
@@ -254,7 +257,23 @@ def _parse_source(doc: dict[str, Any], path: str | None) -> Source:
             raise SpecError(f"name {name!r} is declared twice (as a column and a field, or in "
                             "two cases)", file=path)
         lowered[name.lower()] = name
-    return Source(files=files, format=fmt, columns=columns, fields=fields, delimiter=delimiter)
+    return Source(files=files, format=fmt, columns=columns, fields=fields, delimiter=delimiter,
+                  allow=_parse_allow(raw.get("allow", []), path))
+
+
+def _parse_allow(raw: Any, path: str | None) -> tuple[str, ...]:
+    """``[source] allow``: absolute folders that linked files may really live in."""
+    if not isinstance(raw, list) or not all(isinstance(item, str) for item in raw):
+        raise SpecError('[source] allow: a list of folders, e.g. allow = ["/mnt/cyclers"]',
+                        file=path)
+    for item in raw:
+        if not item.startswith("/"):
+            raise SpecError(f"[source] allow: {item!r} is not an absolute folder path",
+                            file=path, hint='write it from the root, e.g. "/mnt/cyclers"')
+        if item.rstrip("/") == "":
+            raise SpecError("[source] allow: the whole file system (\"/\") cannot be allowed",
+                            file=path, hint="name the folder the instrument files are in")
+    return tuple(raw)
 
 
 def _guess_format(files: str) -> str:
