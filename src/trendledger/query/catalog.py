@@ -8,7 +8,7 @@ scan"): ``FROM 'data.csv'``, ``FROM "data.csv"``, and also a name split by a
 dot, ``FROM "folder/name".csv``, which DuckDB joins back into a path.
 
 What it stops that the locked read-only connection alone does not (measured by
-``bench/guard_layers.py``): a file inside DuckDB's own temporary folder, which
+``bench/guard_layers.py``: 6 of the corpus): a file inside DuckDB's own temporary folder, which
 ``enable_external_access = false`` still lets DuckDB read (the read connection
 now gets a private, empty temporary folder as well, see :mod:`trendledger.store.sandbox`),
 and the built-in listings (``pg_settings``, ``pragma_database_list``,

@@ -9,7 +9,7 @@ the text is checked as written and as sqlglot renders it, so a caller may run
 either.
 
 What it stops that the locked read-only connection alone does not (measured by
-``bench/guard_layers.py``): a PIVOT without an ``IN`` list, which DuckDB runs
+``bench/guard_layers.py``: 2 of the corpus): a PIVOT without an ``IN`` list, which DuckDB runs
 as several statements, and any construct sqlglot misreads as harmless (none
 of the corpus today, which is the point of a second opinion).
 """

@@ -6,7 +6,7 @@ functions come from an allow-list; functions that reach files, the network,
 settings or other SQL are refused by name wherever they stand.
 
 What it stops that the locked read-only connection alone does not (measured by
-``bench/guard_layers.py``): ``query()`` and ``query_table()`` (run SQL held in
+``bench/guard_layers.py``: 8 of the corpus): ``query()`` and ``query_table()`` (run SQL held in
 a string, which would slip past layer 1), ``current_setting()`` and
 ``duckdb_settings()`` (read the settings), ``pragma_*`` functions and
 ``duckdb_databases()`` (list the attached files), ``test_all_types()``.
