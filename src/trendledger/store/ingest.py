@@ -314,19 +314,44 @@ def _scan_lines(spec: Spec, data: bytes, path: str) -> int | None:
                          f"size limit of {MAX_LINE_BYTES:,} bytes", file=path, line=line)
     if spec.source.format == "jsonl" or b'"' in raw:
         return None
+    delim = (spec.source.delimiter or ("\t" if spec.source.format == "tsv" else ",")).encode()
+    if len(delim) == 1:
+        at = np.flatnonzero(codes == delim[0])
+        most = _max_fields(spec)
+        if len(at) >= most:
+            per_line = np.bincount(np.searchsorted(breaks, at), minlength=len(edges) - 1)
+            worst = int(per_line.argmax())
+            if per_line[worst] + 1 > most:
+                line = int(np.count_nonzero(codes[breaks[:worst]] == 10)) + 1
+                raise InputError(f"the row has {int(per_line[worst]) + 1:,} fields; the spec "
+                                 f"declares {len(spec.source.columns)}", file=path, line=line)
     return max(int(np.count_nonzero(lengths)) - 1, 0)
 
 
-def _count_quoted(spec: Spec, text: str) -> int | None:
+def _max_fields(spec: Spec) -> int:
+    """Most fields a row may have before it is refused outright (DuckDB ignores empty
+    trailing fields, so a few more than the columns are allowed; thousands are not)."""
+    return max(1024, 8 * len(spec.source.columns))
+
+
+def _count_quoted(spec: Spec, text: str, path: str) -> int | None:
     """Records after the header of a CSV text with quotes, as DuckDB reads them (None if
-    the csv module cannot split it: then DuckDB's own errors are all there is)."""
+    the csv module cannot split it: then DuckDB's own errors are all there is). A row
+    with far more fields than the spec declares is refused here, naming its line."""
     delim = spec.source.delimiter or ("\t" if spec.source.format == "tsv" else ",")
     reader = csv.reader(io.StringIO(text.removeprefix("\ufeff"), newline=""),
                         delimiter=delim, quotechar='"', doublequote=True)
     limit = csv.field_size_limit()
     csv.field_size_limit(max(limit, len(text) + 1))  # a quoted field may be the whole file
+    most = _max_fields(spec)
     try:
-        return max(sum(1 for row in reader if row) - 1, 0)
+        records = 0
+        for row in reader:
+            if len(row) > most:
+                raise InputError(f"the row has {len(row):,} fields; the spec declares "
+                                 f"{len(spec.source.columns)}", file=path, line=reader.line_num)
+            records += bool(row)
+        return max(records - 1, 0)
     except csv.Error:
         return None
     finally:
@@ -362,7 +387,7 @@ def _inspect(spec: Spec, cand: _Candidate) -> None:
         cand.expected_rows = _scan_lines(spec, cand.data, cand.relative)
         text = _check_utf8(spec, cand.data, cand.relative)
         if cand.expected_rows is None:
-            cand.expected_rows = _count_quoted(spec, text)
+            cand.expected_rows = _count_quoted(spec, text, cand.relative)
         _check_header(spec, cand.data, cand.relative)
         _check_quotes(spec, text, cand.relative)
     elif fmt == "jsonl":
