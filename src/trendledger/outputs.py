@@ -95,7 +95,7 @@ def write_file(path: Path, store: Path | None, writer: Callable[[Path], None], *
         if force:
             os.replace(scratch, path)
         else:
-            os.link(scratch, path)  # fails if the name exists: never replaces a file
+            _place_new(scratch, path)
     except FileExistsError as err:
         raise OutputError("a file appeared there while writing", file=str(path),
                           hint="pass --force to replace it") from err
@@ -103,6 +103,19 @@ def write_file(path: Path, store: Path | None, writer: Callable[[Path], None], *
         raise OutputError(f"cannot write {what}: {err.strerror}", file=str(path)) from err
     finally:
         scratch.unlink(missing_ok=True)
+
+
+def _place_new(scratch: Path, path: Path) -> None:
+    """Give ``scratch`` the name ``path`` only if no file has it (a hard link fails if the
+    name exists; where hard links are not supported, check and rename)."""
+    try:
+        os.link(scratch, path)
+    except FileExistsError:
+        raise
+    except OSError:
+        if os.path.lexists(path):
+            raise FileExistsError(str(path)) from None
+        os.replace(scratch, path)
 
 
 def no_links(folder: Path, names: list[str] | None = None) -> None:
