@@ -451,3 +451,18 @@ def test_a_row_with_thousands_of_fields_is_refused_by_line(lab: Lab, quoted: boo
     with lab.open() as led, pytest.raises(InputError) as refusal:
         led.append()
     assert refusal.value.line == 3 and "160,001 fields" in refusal.value.message
+
+
+@pytest.mark.parametrize(("allow", "said"), [
+    ('"/mnt/cyclers"', "a list of folders"),
+    ('["mnt/cyclers"]', "not an absolute folder path"),
+    ('["/"]', "the whole file system"),
+])
+def test_allowed_folders_must_be_absolute_and_not_everything(tmp_path: Path, allow: str,
+                                                            said: str) -> None:
+    from trendledger.errors import SpecError
+    from trendledger.spec import parse
+
+    text = SPEC.replace('format = "csv"\n', f'format = "csv"\nallow = {allow}\n')
+    with pytest.raises(SpecError, match=said):
+        parse(text, path="spec.toml")
