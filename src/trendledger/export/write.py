@@ -58,7 +58,6 @@ from urllib.parse import quote
 import duckdb
 from sqlglot import exp
 
-from trendledger import outputs
 from trendledger.errors import first_line
 from trendledger.export import dialects
 from trendledger.export.layout import DATA, Column, ExportError, Layout, connection, layout
@@ -73,6 +72,7 @@ from trendledger.export.scripts import (
     sql_string,
 )
 from trendledger.export.scripts import digest as script_digest
+from trendledger.outputs import OutputError, check_not_store, no_links
 from trendledger.store import db as store
 from trendledger.trace import Writer
 from trendledger.version import __version__
@@ -215,8 +215,8 @@ def _claim(folder: Path, store_path: Path | None) -> bool:
     whether the folder is new (then a failed export removes it again).
     """
     try:
-        outputs.check_not_store(folder, store_path, "the export")
-    except outputs.OutputError as err:
+        check_not_store(folder, store_path, "the export")
+    except OutputError as err:
         raise ExportError(err.message, file=err.file, hint=err.hint) from None
     if not folder.exists():
         if folder.is_symlink():
@@ -230,8 +230,8 @@ def _claim(folder: Path, store_path: Path | None) -> bool:
         raise ExportError("the folder is not empty and holds no trendledger export",
                           file=str(folder), hint="export to a new or empty folder")
     try:
-        outputs.no_links(folder)
-    except outputs.OutputError as err:
+        no_links(folder)
+    except OutputError as err:
         raise ExportError(err.message, file=err.file, hint=err.hint) from None
     return False
 

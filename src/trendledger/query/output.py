@@ -11,8 +11,9 @@ from typing import Any
 import duckdb
 import pandas as pd
 
-from trendledger import outputs
 from trendledger.errors import TrendledgerError, first_line, printable
+from trendledger.outputs import check_file
+from trendledger.outputs import write_file as write_output
 
 FORMATS = ("table", "csv", "json", "markdown")
 #: Widest text cell in a terminal table.
@@ -106,7 +107,7 @@ def parse_value(raw: str) -> Any:
 
 def check_target(path: Path, store: Path | None, *, force: bool = False) -> None:
     """Refuse an --out path before the query runs: the store, a folder, an existing file."""
-    outputs.check_file(path, store, force=force, what="the result")
+    check_file(path, store, force=force, what="the result")
 
 
 def write_file(df: pd.DataFrame, path: Path, fmt: str, *, store: Path | None = None,
@@ -127,7 +128,7 @@ def write_file(df: pd.DataFrame, path: Path, fmt: str, *, store: Path | None = N
             raise TrendledgerError(f"cannot write the result: {first_line(err)}",
                                    file=str(path)) from err
 
-    outputs.write_file(path, store, writer, force=force, what="the result")
+    write_output(path, store, writer, force=force, what="the result")
 
 
 def write_parquet(df: pd.DataFrame, path: Path) -> None:

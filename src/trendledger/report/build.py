@@ -32,8 +32,8 @@ import numpy as np
 import pandas as pd
 from sqlglot import exp
 
-from trendledger import outputs
 from trendledger.errors import TrendledgerError
+from trendledger.outputs import check_not_store, write_owned
 from trendledger.spec import Fit, Spec, did_you_mean
 from trendledger.version import __version__
 from trendledger.views.read import view_columns
@@ -592,7 +592,7 @@ def build(
     The folder may be new, or hold other files: a file of the same name that an
     earlier report did not write is refused unless ``force`` (see ``outputs``).
     """
-    outputs.check_not_store(Path(out), led.path, "the report")
+    check_not_store(Path(out), led.path, "the report")
     plots = _plots()
     fit = led.spec.fit(name)
     con = led.con
@@ -739,7 +739,7 @@ def build(
     html = page(f"trendledger report: {fit.name}", head, sections, _footer(led, views, batches))
     # Images of an earlier report in the same folder would no longer match the page: the
     # marker lists what that report wrote, and only those files are replaced or removed.
-    outputs.write_owned(target, {**images, index.name: html.encode("utf-8")}, led.path,
+    write_owned(target, {**images, index.name: html.encode("utf-8")}, led.path,
                         force=force, marker=MARKER, what="the report")
     return index
 
