@@ -301,17 +301,18 @@ def test_refuses_a_folder_that_is_not_an_export(tmp_path: Path) -> None:
     with pytest.raises(ExportError, match="holds no trendledger export"):
         export(lab.store, target)
     assert (target / "notes.txt").read_text() == "mine"
-    assert sorted(p.name for p in target.iterdir()) == [".trendledger-export.lock", "notes.txt"]
+    # a refused export leaves nothing behind, not even its lock file
+    assert sorted(p.name for p in target.iterdir()) == ["notes.txt"]
 
 
 def test_a_folder_that_cannot_be_written_is_one_line(tmp_path: Path) -> None:
     lab = build_lab(tmp_path / "lab", days=1)
     (tmp_path / "afile").write_text("not a folder")
-    for where, said in ((tmp_path / "afile", "File exists"),
-                        (tmp_path / "afile" / "below", "Not a directory")):
+    for where, said in ((tmp_path / "afile", "the export folder is a file"),
+                        (tmp_path / "afile" / "below", "cannot write the export: Not a directory")):
         code, out, err = tl("export", str(where), "--store", str(lab.store))
         assert code == 2 and out == ""
-        assert err.startswith(f"trendledger: error: {where}: cannot write the export: {said}")
+        assert err.startswith(f"trendledger: error: {where}: {said}")
         assert "Traceback" not in err and len(err.strip().splitlines()) == 1
 
 
@@ -328,8 +329,10 @@ def test_leftovers_of_an_interrupted_export_are_cleaned(tmp_path: Path,
     target = tmp_path / "out"
     export(lab.store, target)
     # a crash: staging and trash folders left, a stray partition, a partition moved away
-    (target / ".staging-dead" / "measurements").mkdir(parents=True)
-    (target / ".trash-dead").mkdir()
+    # the names an export gives its staging and trash folders (a stray folder of the
+    # user's that merely starts the same way is not the export's to remove)
+    (target / f".staging-{'d' * 32}" / "measurements").mkdir(parents=True)
+    (target / f".trash-{'e' * 32}").mkdir()
     stray = target / "measurements" / "day=2020-01-01"
     stray.mkdir()
     (stray / "data_0.parquet").write_bytes(b"junk")

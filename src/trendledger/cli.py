@@ -9,9 +9,10 @@ from typing import Annotated
 
 import typer
 
-from trendledger.errors import TrendledgerError
+from trendledger.errors import TrendledgerError, printable
 from trendledger.ledger import DEFAULT_WAIT, Ledger, default_store
-from trendledger.query import output
+from trendledger.query import limits, output
+from trendledger.query.params import collect_params
 from trendledger.trace import Writer
 from trendledger.version import __version__
 
@@ -32,11 +33,19 @@ WaitOpt = Annotated[
 FormatOpt = Annotated[
     str, typer.Option("--format", help="table, csv, json or markdown")
 ]
+TimeoutOpt = Annotated[
+    float, typer.Option("--timeout", help="Stop the read after this many seconds (0: no limit)")
+]
 
 
 def _fail(err: TrendledgerError) -> None:
-    typer.echo(f"trendledger: error: {err}", err=True)
+    typer.echo(f"trendledger: error: {printable(str(err))}", err=True)
     raise typer.Exit(err.exit_code)
+
+
+def _shown(value: object) -> str:
+    """A name or value for the terminal, with control characters escaped."""
+    return printable(str(value))
 
 
 #: Options given before the command, set afresh by main_options on every invocation.
@@ -133,17 +142,17 @@ def append(
             )
         for o in summary.outcomes:
             if o.status == "loaded" and o.replaces is not None:
-                typer.echo(f"  {o.path}: {o.message}")
+                typer.echo(f"  {_shown(o.path)}: {_shown(o.message)}")
         for o in summary.outcomes:
             if o.status == "rejected":
-                typer.echo(f"  rejected {o.path}: {o.message}", err=True)
+                typer.echo(f"  rejected {_shown(o.path)}: {_shown(o.message)}", err=True)
         if summary.waiting:
             typer.echo(f"{summary.waiting} file(s) refused earlier and unchanged since are "
                        "waiting (see 'trendledger waiting'; --retry-rejected tries them):",
                        err=True)
             for o in summary.outcomes:
                 if o.status == "waiting":
-                    typer.echo(f"  waiting {o.path}: {o.message}", err=True)
+                    typer.echo(f"  waiting {_shown(o.path)}: {_shown(o.message)}", err=True)
     if summary.rejected:
         raise typer.Exit(3)
 
@@ -257,17 +266,19 @@ def check(
         typer.echo(f"fine: {report.fine}  missing: {len(report.missing)}  "
                    f"changed: {len(report.changed)}  row counts off: {len(report.count_mismatch)}")
         for p in report.changed:
-            typer.echo(f"  changed since loaded: {p}")
+            typer.echo(f"  changed since loaded: {_shown(p)}")
         for p in report.missing:
-            typer.echo(f"  missing on disk: {p}")
+            typer.echo(f"  missing on disk: {_shown(p)}")
         for p in report.count_mismatch:
-            typer.echo(f"  row count: {p}")
+            typer.echo(f"  row count: {_shown(p)}")
+        for p in report.unreadable:
+            typer.echo(f"  cannot check: {_shown(p)}")
         for group in report.same_content:
-            typer.echo(f"  identical content: {', '.join(group)}")
+            typer.echo(f"  identical content: {_shown(', '.join(group))}")
         for p in report.duplicate_rows:
-            typer.echo(f"  repeated rows: {p}")
+            typer.echo(f"  repeated rows: {_shown(p)}")
         for p in report.repeated_x:
-            typer.echo(f"  repeated x: {p}")
+            typer.echo(f"  repeated x: {_shown(p)}")
         if report.copies_differ:
             typer.echo("published copy and writer's copy differ:")
             for p in report.copies_differ:
@@ -290,6 +301,7 @@ def fits(
     view: Annotated[str | None, typer.Option("--view", help="A companion view, e.g. windows, points, change, crossing, alerts")] = None,
     break_at: Annotated[float | None, typer.Option("--break-at", help="Chow test for a break in each group's line at this x")] = None,
     fmt: FormatOpt = "table",
+    timeout: TimeoutOpt = limits.DEFAULT_TIMEOUT,
     store: StoreOpt = None,
     wait: WaitOpt = DEFAULT_WAIT,
 ) -> None:
@@ -299,7 +311,7 @@ def fits(
     try:
         with _open(store, read_only=True, wait=wait) as led:
             df = led.fits(name, where, sort=sort, desc=desc, limit=limit, view=view,
-                          break_at=break_at)
+                          break_at=break_at, timeout=timeout)
     except TrendledgerError as err:
         _fail(err)
         return
@@ -330,7 +342,8 @@ def watch(
         _fail(err)
         return
     if fmt == "table":
-        typer.echo(watch_mod.render(df), nl=False)
+        typer.echo("\n".join(_shown(line) for line in watch_mod.render(df).split("\n")),
+                   nl=False)
     else:
         _print(df, fmt)
         if df["reason"].isin(watch_mod.PROJECTIONS).any():
@@ -366,34 +379,44 @@ def _param(text: str) -> tuple[str, object]:
 
 @app.command()
 def query(
-    sql: Annotated[str, typer.Argument(help="One read-only SQL statement; $name for parameters")],
+    sql: Annotated[str, typer.Argument(help="One read-only SQL statement; $name for parameters (after -- if it starts with -)")],
     param: Annotated[list[str] | None, typer.Option("--param", help="NAME=VALUE, bound to $NAME (numbers become numbers; quote to keep text)")] = None,
     fmt: Annotated[str, typer.Option("--format", help="table, csv, json, markdown or parquet")] = "table",
     out: Annotated[Path | None, typer.Option("--out", help="Write to this file instead of the terminal")] = None,
+    force: Annotated[bool, typer.Option("--force", help="Overwrite an existing --out file")] = False,
+    timeout: TimeoutOpt = limits.DEFAULT_TIMEOUT,
+    max_rows: Annotated[int, typer.Option("--max-rows", help="Rows shown on the terminal (0: all); --out writes every row")] = limits.DEFAULT_MAX_ROWS,
     store: StoreOpt = None,
     wait: WaitOpt = DEFAULT_WAIT,
 ) -> None:
     """Run one read-only SQL statement against the store."""
-    params = dict(_param(p) for p in param or [])
     if fmt not in (*output.FORMATS, "parquet"):
         raise typer.BadParameter("choose table, csv, json, markdown or parquet", param_hint="--format")
     if fmt == "parquet" and out is None:
         raise typer.BadParameter("parquet output needs --out FILE", param_hint="--format")
     try:
+        params = collect_params(_param(p) for p in param or [])
+        target = default_store(store)
+        if out is not None:
+            output.check_target(out, target, force=force)
         with _open(store, read_only=True, wait=wait) as led:
-            df = led.query(sql, params)
+            df = led.query(sql, params, timeout=timeout,
+                           max_rows=None if out is not None else max_rows)
     except TrendledgerError as err:
         _fail(err)
         return
     if out is None:
         _print(df, fmt)
+        if df.attrs.get("truncated"):
+            typer.echo(f"trendledger: showing the first {len(df)} rows; pass --max-rows 0 "
+                       "for all, or --out FILE", err=True)
         return
     try:
-        output.write_file(df, out, fmt)
+        output.write_file(df, out, fmt, store=target, force=force)
     except TrendledgerError as err:
         _fail(err)
         return
-    typer.echo(f"wrote {len(df)} row(s) to {out}")
+    typer.echo(f"wrote {len(df)} row(s) to {_shown(out)}")
 
 
 spec_app = typer.Typer(help="Show or change the spec stored in the store.", no_args_is_help=True)
@@ -444,17 +467,18 @@ def report(
     since: Annotated[str | None, typer.Option("--since", help="Lineage of batches started on or after this date (YYYY-MM-DD); slope history from then on")] = None,
     groups: Annotated[list[str] | None, typer.Option("--groups", help="Also show these groups (repeat, or comma-separated)")] = None,
     pair: Annotated[str, typer.Option("--pair", help="Two fit columns for the overview, vertical axis first")] = "slope,r2",
+    force: Annotated[bool, typer.Option("--force", help="Replace files in the folder that an earlier report did not write")] = False,
     store: StoreOpt = None,
     wait: WaitOpt = DEFAULT_WAIT,
 ) -> None:
     """Write a self-contained HTML report (images embedded) of one fit to a folder."""
     try:
         with _open(store, read_only=True, wait=wait) as led:
-            page = led.report(name, out=out, since=since, groups=groups, pair=pair)
+            page = led.report(name, out=out, since=since, groups=groups, pair=pair, force=force)
     except TrendledgerError as err:
         _fail(err)
         return
-    typer.echo(f"wrote {page}")
+    typer.echo(f"wrote {_shown(page)}")
 
 
 @app.command("export")

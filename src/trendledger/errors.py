@@ -9,6 +9,44 @@ from __future__ import annotations
 import re
 from dataclasses import dataclass
 
+#: Characters that steer a terminal or reorder text: C0/C1 controls (ESC, NUL, BEL,
+#: newlines...), bidirectional overrides and the Unicode line and paragraph separators.
+_UNPRINTABLE = re.compile("[\x00-\x1f\x7f-\x9f\u061c\u200e\u200f\u202a-\u202e"
+                          "\u2066-\u2069\u2028\u2029]")
+
+
+def printable(text: str) -> str:
+    """``text`` safe to print on a terminal: every control character escaped.
+
+    A file name or a value can hold an escape sequence that clears the screen,
+    retitles the window or hides text; printed raw, the file is in charge of the
+    user's terminal. Tabs and line breaks are escaped too, so one value stays
+    on one line.
+    """
+    if not _UNPRINTABLE.search(text):
+        return text
+    return _UNPRINTABLE.sub(_escape, text)
+
+
+def _escape(found: re.Match[str]) -> str:
+    code = ord(found.group(0))
+    if code < 0x100:
+        return f"\\x{code:02x}"
+    return f"\\u{code:04x}"
+
+
+def excerpt(value: object, limit: int = 40) -> str:
+    """A short, escaped quotation of a value from a data file, for an error message.
+
+    Messages are stored in the lineage, which every query user can read, so a
+    message names the file, line and column and quotes at most ``limit``
+    characters of what was found there, never a whole line.
+    """
+    text = printable(str(value))
+    if len(text) > limit:
+        text = text[: limit - 1] + "…"
+    return f"'{text}'"
+
 
 def first_line(error: BaseException) -> str:
     """The first line of a library's error message, without terminal colour codes: DuckDB

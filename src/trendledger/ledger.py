@@ -14,11 +14,19 @@ from typing import Any
 import duckdb
 import pandas as pd
 
-from trendledger.errors import BusyError, InputError, StoreError, TrendledgerError, first_line
+from trendledger.errors import (
+    BusyError,
+    InputError,
+    QueryRefused,
+    StoreError,
+    TrendledgerError,
+    first_line,
+)
+from trendledger.query import limits
 from trendledger.spec import Spec
 from trendledger.spec import load as load_spec
 from trendledger.store import db as store
-from trendledger.store import evolve, ingest, lineage, publish, waiting
+from trendledger.store import evolve, ingest, lineage, publish, sandbox, waiting
 from trendledger.store.evolve import SpecChange
 from trendledger.store.ingest import BatchSummary, Progress
 from trendledger.store.lineage import CheckReport
@@ -29,13 +37,8 @@ from trendledger.views import read as fits_mod
 #: Seconds a command waits for another process's lock before giving up.
 DEFAULT_WAIT = 5.0
 #: A read-only connection that cannot touch files or change its own settings.
-LOCKED: dict[str, str | bool] = {
-    "enable_external_access": False,
-    "autoload_known_extensions": False,
-    "autoinstall_known_extensions": False,
-    "python_enable_replacements": False,
-    "lock_configuration": True,
-}
+LOCKED = sandbox.LOCKED
+read_config = sandbox.read_config
 
 
 class Ledger:
@@ -114,13 +117,13 @@ class Ledger:
             publish.settle(target)
             try:
                 con = store.connect(target, read_only=True, wait=0,
-                                    config=dict(LOCKED), trace=trace)
+                                    config=read_config(target), trace=trace)
             except BusyError:
                 # Another program holds the published copy read-write; unless a writer is
                 # running, a fresh copy at the path lets readers in at once.
                 publish.settle(target, fresh=True)
                 con = store.connect(target, read_only=True, wait=wait,
-                                    config=dict(LOCKED), trace=trace)
+                                    config=read_config(target), trace=trace)
             return cls(target, con, True)
         layout = publish.Layout.of(target)
         if not layout.exists():
@@ -288,7 +291,7 @@ class Ledger:
         if not folder.is_dir():  # every file would read as missing, and check would pass
             raise TrendledgerError("the root folder does not exist", file=str(folder),
                                    hint="pass the folder the data moved to with --root")
-        report = lineage.check(self.con, folder)
+        report = lineage.check(self.con, folder, self.spec.source.allow)
         layout = publish.Layout.of(self.path)
         other = layout.writer if self.read_only else layout.published
         lineage.compare_copies(self.con, other, report)
@@ -304,21 +307,31 @@ class Ledger:
         limit: int | None = None,
         view: str | None = None,
         break_at: float | None = None,
+        timeout: float | None = limits.DEFAULT_TIMEOUT,
     ) -> pd.DataFrame:
         """Per-group fits of ``name`` (optional with one fit); ``view`` picks a companion view.
 
         ``break_at=x`` gives the Chow test for a break at x per group instead (watch.break_test).
+        The read is stopped after ``timeout`` seconds (None: no limit).
         """
         fit = self.spec.fit(name)
-        if break_at is not None:
-            from trendledger.views.watch import break_test
+        try:
+            with limits.time_limit(self.con, timeout, "the fits read"):
+                if break_at is not None:
+                    from trendledger.views.watch import break_test
 
-            if view:
-                raise StoreError("give either a companion view or a break point, not both")
-            return break_test(self.con, fit, break_at, where=where, sort=sort, desc=desc,
-                              limit=limit)
-        target = fit.view + (f"_{view}" if view else "")
-        return fits_mod.read(self.con, target, where=where, sort=sort, desc=desc, limit=limit)
+                    if view:
+                        raise StoreError("give either a companion view or a break point, "
+                                         "not both")
+                    return break_test(self.con, fit, break_at, where=where, sort=sort,
+                                      desc=desc, limit=limit)
+                target = fit.view + (f"_{view}" if view else "")
+                return fits_mod.read(self.con, target, where=where, sort=sort, desc=desc,
+                                     limit=limit)
+        except duckdb.Error as err:
+            # e.g. a --where that is no condition (a text column) or compares text with a number
+            raise QueryRefused(f"the fits read failed: {first_line(err)}",
+                               hint="check the --where condition" if where else None) from err
 
     def watch(self, name: str | None = None) -> pd.DataFrame:
         """Today's alerts of fit ``name`` (all fits when None), newest unit first (watch.alerts)."""
@@ -342,11 +355,22 @@ class Ledger:
         rows = views.listing(self.con)
         return pd.DataFrame(rows, columns=["name", "kind", "fit", "description"])
 
-    def query(self, sql: str, params: dict[str, Any] | None = None) -> pd.DataFrame:
-        """Run one read-only statement with bound named parameters (``$name``)."""
+    def query(
+        self,
+        sql: str,
+        params: dict[str, Any] | None = None,
+        *,
+        timeout: float | None = limits.DEFAULT_TIMEOUT,
+        max_rows: int | None = None,
+    ) -> pd.DataFrame:
+        """Run one read-only statement with bound named parameters (``$name``).
+
+        Stopped after ``timeout`` seconds (None: no limit); with ``max_rows`` at
+        most that many rows are fetched and ``attrs["truncated"]`` says if more were.
+        """
         from trendledger.query.run import run
 
-        return run(self.con, sql, params or {})
+        return run(self.con, sql, params or {}, timeout=timeout, max_rows=max_rows)
 
     def report(
         self,
@@ -356,11 +380,15 @@ class Ledger:
         since: str | date | None = None,
         groups: list[str] | None = None,
         pair: str | None = None,
+        force: bool = False,
     ) -> Path:
-        """Write ``out/index.html`` (self-contained) and its PNG images; returns the page."""
+        """Write ``out/index.html`` (self-contained) and its PNG images; returns the page.
+
+        Files in ``out`` that an earlier report did not write are never replaced
+        unless ``force``."""
         from trendledger.report.build import build
 
-        return build(self, out, name=name, since=since, groups=groups, pair=pair)
+        return build(self, out, name=name, since=since, groups=groups, pair=pair, force=force)
 
     def export(self, folder: str | Path, partition_by: str | None = None) -> dict[str, Any]:
         """Write Parquet data, lineage and every view in Spark/PostgreSQL/Trino/DuckDB SQL to

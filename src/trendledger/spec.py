@@ -93,6 +93,8 @@ class Source:
     censored: dict[str, str] = field(default_factory=dict)
     #: texts read as missing in one column only, besides ``missing`` (csv and tsv)
     column_missing: dict[str, tuple[str, ...]] = field(default_factory=dict)
+    #: folders outside the spec's folder that files may really live in (through links)
+    allow: tuple[str, ...] = ()
 
     def derived(self) -> dict[str, str]:
         """Columns the store adds for censored columns: which side, and the limit."""
@@ -225,7 +227,7 @@ def _number(raw: dict[str, Any], key: str, where: str, path: str | None) -> floa
 def _parse_source(doc: dict[str, Any], path: str | None) -> Source:
     raw = _table(doc, "source", path)
     _unknown_keys(raw, {"files", "format", "columns", "fields", "delimiter", "missing",
-                        "decimal", "key", "timezone"}, "[source]", path)
+                        "decimal", "key", "timezone", "allow"}, "[source]", path)
     files = raw.get("files")
     if not isinstance(files, str) or not files.strip():
         raise SpecError("[source] files: give a path template such as \"in/{day}/{unit}.csv\"",
@@ -335,7 +337,7 @@ def _parse_source(doc: dict[str, Any], path: str | None) -> Source:
     return Source(files=files, format=fmt, columns=columns, fields=fields, delimiter=delimiter,
                   headers=headers, missing=missing, decimal=decimal, key=key,
                   timezone=_zone(raw.get("timezone", "UTC"), path), censored=censored,
-                  column_missing=column_missing)
+                  column_missing=column_missing, allow=_parse_allow(raw.get("allow", []), path))
 
 
 def _zone(value: Any, path: str | None) -> str:
@@ -380,6 +382,21 @@ def _missing(value: Any, fmt: str, path: str | None,
         raise SpecError(f"{where} missing: a list of texts, e.g. [\"\", \"NaN\", \"-9999\"]",
                         file=path)
     return tuple(dict.fromkeys(value))
+
+
+def _parse_allow(raw: Any, path: str | None) -> tuple[str, ...]:
+    """``[source] allow``: absolute folders that linked files may really live in."""
+    if not isinstance(raw, list) or not all(isinstance(item, str) for item in raw):
+        raise SpecError('[source] allow: a list of folders, e.g. allow = ["/mnt/cyclers"]',
+                        file=path)
+    for item in raw:
+        if not item.startswith("/"):
+            raise SpecError(f"[source] allow: {item!r} is not an absolute folder path",
+                            file=path, hint='write it from the root, e.g. "/mnt/cyclers"')
+        if item.rstrip("/") == "":
+            raise SpecError("[source] allow: the whole file system (\"/\") cannot be allowed",
+                            file=path, hint="name the folder the instrument files are in")
+    return tuple(raw)
 
 
 def _guess_format(files: str) -> str:

@@ -46,6 +46,7 @@ import fcntl
 import hashlib
 import json
 import os
+import re
 import shutil
 import time
 import uuid
@@ -71,6 +72,7 @@ from trendledger.export.scripts import (
     sql_string,
 )
 from trendledger.export.scripts import digest as script_digest
+from trendledger.outputs import OutputError, check_not_store, no_links
 from trendledger.store import db as store
 from trendledger.trace import Writer
 from trendledger.version import __version__
@@ -83,6 +85,7 @@ FILE = "data.parquet"
 _LOCK = ".trendledger-export.lock"
 _STAGING = ".staging-"
 _TRASH = ".trash-"
+_LEFTOVER = re.compile(rf"({re.escape(_STAGING)}|{re.escape(_TRASH)})[0-9a-f]{{32}}")
 #: Hive's folder name for a NULL partition value (Spark, Trino and DuckDB read it as NULL).
 NULL_PARTITION = "__HIVE_DEFAULT_PARTITION__"
 
@@ -203,14 +206,46 @@ def _locked(folder: Path) -> Iterator[None]:
             fcntl.flock(handle, fcntl.LOCK_UN)
 
 
+def _claim(folder: Path, store_path: Path | None) -> bool:
+    """Check, before anything is written, that the export may write ``folder``.
+
+    It must be new, empty (hidden files count), or an earlier export (its
+    manifest proves it), with no symbolic link anywhere inside, since a link
+    would lead the export's writes and removals out of the folder. Returns
+    whether the folder is new (then a failed export removes it again).
+    """
+    try:
+        check_not_store(folder, store_path, "the export")
+    except OutputError as err:
+        raise ExportError(err.message, file=err.file, hint=err.hint) from None
+    if not folder.exists():
+        if folder.is_symlink():
+            raise ExportError("the export folder is a broken link", file=str(folder))
+        return True
+    if not folder.is_dir():
+        raise ExportError("the export folder is a file", file=str(folder),
+                          hint="name a new or empty folder")
+    manifest = folder / MANIFEST
+    if manifest.is_symlink() or (not manifest.is_file() and any(folder.iterdir())):
+        raise ExportError("the folder is not empty and holds no trendledger export",
+                          file=str(folder), hint="export to a new or empty folder")
+    try:
+        no_links(folder)
+    except OutputError as err:
+        raise ExportError(err.message, file=err.file, hint=err.hint) from None
+    return False
+
+
+def _store_path(source: Any) -> Path | None:
+    if isinstance(source, str | Path):
+        return Path(source)
+    path = getattr(source, "path", None)
+    return Path(path) if isinstance(path, str | Path) else None
+
+
 def _read_manifest(folder: Path) -> dict[str, Any] | None:
     path = folder / MANIFEST
     if not path.is_file():
-        others = [p.name for p in folder.iterdir() if p.name != _LOCK
-                  and not p.name.startswith((_STAGING, _TRASH))]
-        if others:
-            raise ExportError("the folder is not empty and holds no trendledger export",
-                              file=str(folder), hint="export to a new or empty folder")
         return None
     try:
         found = json.loads(path.read_text(encoding="utf-8"))
@@ -229,9 +264,10 @@ def _write_atomic(path: Path, text: str) -> None:
 
 
 def _clean(folder: Path) -> None:
-    """Remove what an interrupted export left behind."""
+    """Remove what an interrupted export left behind (names only an export makes)."""
     for leftover in folder.iterdir():
-        if leftover.name.startswith((_STAGING, _TRASH)) and leftover.is_dir():
+        if _LEFTOVER.fullmatch(leftover.name) and leftover.is_dir() \
+                and not leftover.is_symlink():
             shutil.rmtree(leftover, ignore_errors=True)
 
 
@@ -266,6 +302,23 @@ def _export(source: Any, folder: str | Path, partition_by: str | None,
             ) -> dict[str, Any]:
     started = time.perf_counter()
     target = Path(folder).resolve()
+    created = _claim(target, _store_path(source))
+    try:
+        return _export_locked(source, target, partition_by, dialects_wanted, wait, trace,
+                              started)
+    except BaseException:
+        # A refused or failed export leaves nothing behind: not the folder it made, not
+        # its lock file in an empty folder; an earlier export stays whole.
+        if created:
+            shutil.rmtree(target, ignore_errors=True)
+        elif not (target / MANIFEST).is_file():
+            (target / _LOCK).unlink(missing_ok=True)
+        raise
+
+
+def _export_locked(source: Any, target: Path, partition_by: str | None,
+                   dialects_wanted: tuple[str, ...], wait: float, trace: Writer | None,
+                   started: float) -> dict[str, Any]:
     with connection(source, wait=wait, write_files=True, trace=trace) as con, _locked(target):
         old = _read_manifest(target)
         _clean(target)

@@ -11,7 +11,9 @@ from typing import Any
 import duckdb
 import pandas as pd
 
-from trendledger.errors import TrendledgerError, first_line
+from trendledger.errors import TrendledgerError, first_line, printable
+from trendledger.outputs import check_file
+from trendledger.outputs import write_file as write_output
 
 FORMATS = ("table", "csv", "json", "markdown")
 #: Widest text cell in a terminal table.
@@ -48,14 +50,23 @@ def rows(df: pd.DataFrame) -> list[dict[str, Any]]:
     ]
 
 
-def render(df: pd.DataFrame, fmt: str = "table", digits: int = 6) -> str:
-    """Text for ``df`` in one of FORMATS. Tables round to ``digits``; csv and json do not."""
+def render(df: pd.DataFrame, fmt: str = "table", digits: int = 6, *,
+           escape: bool = True) -> str:
+    """Text for ``df`` in one of FORMATS. Tables round to ``digits``; csv and json do not.
+
+    With ``escape`` (for a terminal) control characters in names and values are
+    shown escaped (see ``errors.printable``); JSON escapes them itself.
+    """
     if fmt == "csv":
-        return str(df.to_csv(index=False, float_format="%.17g"))
+        text = str(df.to_csv(index=False, float_format="%.17g"))
+        return "\n".join(printable(line) for line in text.split("\n")) if escape else text
     if fmt == "json":
         return json.dumps(rows(df), indent=1, default=str) + "\n"
     cells = [[_cell(v, digits) for v in rec] for rec in df.itertuples(index=False, name=None)]
     header = [str(c) for c in df.columns]
+    if escape:
+        cells = [[printable(c) for c in row] for row in cells]
+        header = [printable(h) for h in header]
     if fmt == "table":
         # a terminal table stays readable: long text is cut (csv and json keep it whole)
         cells = [[c if len(c) <= WIDEST else c[: WIDEST - 1] + "…" for c in row] for row in cells]
@@ -94,20 +105,30 @@ def parse_value(raw: str) -> Any:
     return raw
 
 
-def write_file(df: pd.DataFrame, path: Path, fmt: str) -> None:
-    """Write a result to ``path`` as ``fmt`` (a text format, or parquet); a path that
-    cannot be written is a one-line error naming it."""
-    try:
-        if fmt == "parquet":
-            write_parquet(df, path)
-        else:
-            path.write_text(render(df, fmt), encoding="utf-8")
-    except OSError as err:
-        raise TrendledgerError(f"cannot write the result: {err.strerror or err}",
-                               file=str(path)) from err
-    except duckdb.IOException as err:
-        raise TrendledgerError(f"cannot write the result: {first_line(err)}",
-                               file=str(path)) from err
+def check_target(path: Path, store: Path | None, *, force: bool = False) -> None:
+    """Refuse an --out path before the query runs: the store, a folder, an existing file."""
+    check_file(path, store, force=force, what="the result")
+
+
+def write_file(df: pd.DataFrame, path: Path, fmt: str, *, store: Path | None = None,
+               force: bool = False) -> None:
+    """Write a result to ``path`` as ``fmt`` (a text format, or parquet).
+
+    Never onto the store, never through a link, never over an existing file
+    unless ``force`` (see :mod:`trendledger.outputs`); a path that cannot be
+    written is a one-line error naming it.
+    """
+    def writer(scratch: Path) -> None:
+        try:
+            if fmt == "parquet":
+                write_parquet(df, scratch)
+            else:
+                scratch.write_text(render(df, fmt, escape=False), encoding="utf-8")
+        except duckdb.IOException as err:
+            raise TrendledgerError(f"cannot write the result: {first_line(err)}",
+                                   file=str(path)) from err
+
+    write_output(path, store, writer, force=force, what="the result")
 
 
 def write_parquet(df: pd.DataFrame, path: Path) -> None:

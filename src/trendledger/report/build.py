@@ -33,6 +33,7 @@ import pandas as pd
 from sqlglot import exp
 
 from trendledger.errors import TrendledgerError
+from trendledger.outputs import check_not_store, write_owned
 from trendledger.spec import Fit, Spec, did_you_mean
 from trendledger.version import __version__
 from trendledger.views.read import view_columns
@@ -56,6 +57,8 @@ CAUTION = ("Statistical projection, not a safety or release decision; follow you
            "standards and qualified review.")
 #: Name of the label column the report adds to every view it reads.
 LABEL = "tl_report_group"  # the reserved prefix: no user column can take it
+#: Hidden file in the report folder listing the files the report wrote there.
+MARKER = ".trendledger-report"
 #: Panels per image: more groups make several images rather than one giant one.
 PANELS_PER_IMAGE = 12
 DEFAULT_PAIR = ("slope", "r2")
@@ -582,8 +585,14 @@ def build(
     since: str | date | None = None,
     groups: Iterable[str] | None = None,
     pair: str | Sequence[str] | None = None,
+    force: bool = False,
 ) -> Path:
-    """Write ``out/index.html`` and the PNG images beside it; returns the page's path."""
+    """Write ``out/index.html`` and the PNG images beside it; returns the page's path.
+
+    The folder may be new, or hold other files: a file of the same name that an
+    earlier report did not write is refused unless ``force`` (see ``outputs``).
+    """
+    check_not_store(Path(out), led.path, "the report")
     plots = _plots()
     fit = led.spec.fit(name)
     con = led.con
@@ -608,15 +617,6 @@ def build(
     detail = alerting + [g for g in sorted(asked, key=natural_key) if g not in reasons]
 
     target = Path(out)
-    try:
-        target.mkdir(parents=True, exist_ok=True)
-        # Images of an earlier report in the same folder would no longer match the page.
-        for old in (*target.glob("groups*.png"), *target.glob("history*.png"),
-                    target / "overview.png"):
-            old.unlink(missing_ok=True)
-    except OSError as err:
-        raise ReportError(f"cannot write the report folder: {err.strerror}",
-                          file=str(target)) from err
     sections: list[Section] = []
     images: dict[str, bytes] = {}
 
@@ -734,12 +734,13 @@ def build(
     batches, odd = _lineage(con, since_day)
     sections.append(_lineage_section(batches, odd, since_day))
 
-    for file, png in images.items():
-        (target / file).write_bytes(png)
     index = target / "index.html"
     head = _head(led, fit, fits, alerting, batches, since_day)
-    index.write_text(page(f"trendledger report: {fit.name}", head, sections,
-                          _footer(led, views, batches)), encoding="utf-8")
+    html = page(f"trendledger report: {fit.name}", head, sections, _footer(led, views, batches))
+    # Images of an earlier report in the same folder would no longer match the page: the
+    # marker lists what that report wrote, and only those files are replaced or removed.
+    write_owned(target, {**images, index.name: html.encode("utf-8")}, led.path,
+                        force=force, marker=MARKER, what="the report")
     return index
 
 

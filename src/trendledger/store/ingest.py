@@ -12,7 +12,6 @@ from __future__ import annotations
 import codecs
 import csv
 import datetime as dt
-import gzip
 import hashlib
 import io
 import json
@@ -26,15 +25,23 @@ from pathlib import Path
 from typing import Any
 
 import duckdb
+import numpy as np
 import pandas as pd
 import sqlglot
 from sqlglot import exp
 
-from trendledger.errors import InputError, StoreError
+from trendledger.errors import InputError, StoreError, excerpt, printable
 from trendledger.spec import FLOATS, NUMERIC, Spec
 from trendledger.store import history, waiting
 from trendledger.store.db import first_row, utcnow
-from trendledger.store.paths import PathTemplate, expand, relative_to_root
+from trendledger.store.paths import (
+    PathTemplate,
+    expand,
+    irregular,
+    outside,
+    read_once,
+    relative_to_root,
+)
 from trendledger.version import __version__
 from trendledger.views import moments
 
@@ -93,6 +100,7 @@ class _Candidate:
     link: str = ""
     decision: str = "load"  # load | skip | unchanged | waiting | aside
     note: str | None = None
+    expected_rows: int | None = None  # data lines counted in Python, checked after the read
 
 
 def _mtime(stat: os.stat_result) -> dt.datetime:
@@ -158,12 +166,13 @@ def _check_header(spec: Spec, data: bytes, path: str) -> None:
             if missing:
                 parts.append("missing " + ", ".join(missing))
             if extra:
-                parts.append("unexpected " + ", ".join(repr(e) for e in extra))
+                parts.append("unexpected " + ", ".join(excerpt(e) for e in extra[:5])
+                             + (f" and {len(extra) - 5} more" if len(extra) > 5 else ""))
             detail = "; ".join(parts)
         else:
             detail = "columns in another order"
         raise InputError(
-            f"header {','.join(names)!r} does not match the spec ({detail}); expected "
+            f"header {excerpt(','.join(names), 80)} does not match the spec ({detail}); expected "
             f"{','.join(want)!r}",
             file=path, line=1,
         )
@@ -173,10 +182,7 @@ def _check_utf8(spec: Spec, data: bytes, path: str) -> str:
     """DuckDB replaces undecodable bytes before casting; we name the line instead."""
     raw = data
     if spec.source.compression == "gzip":
-        try:
-            raw = gzip.decompress(data)
-        except (OSError, EOFError, zlib.error) as err:
-            raise InputError(f"not a valid gzip file ({err})", file=path) from err
+        raw = _gunzip(data, path)
     try:
         return raw.decode("utf-8")
     except UnicodeDecodeError as err:
@@ -232,7 +238,7 @@ def _check_line_endings(spec: Spec, text: str, path: str) -> None:
 
 def _check_jsonl(spec: Spec, data: bytes, path: str) -> None:
     """Every object must carry exactly the declared keys: DuckDB would fill NULLs silently."""
-    raw = gzip.decompress(data) if spec.source.compression == "gzip" else data
+    raw = _gunzip(data, path) if spec.source.compression == "gzip" else data
     want = {spec.source.header(n) for n in spec.source.columns}
     for number, line in enumerate(io.BytesIO(raw), start=1):
         if not line.strip():
@@ -241,6 +247,8 @@ def _check_jsonl(spec: Spec, data: bytes, path: str) -> None:
             obj = json.loads(line)
         except (json.JSONDecodeError, UnicodeDecodeError) as err:
             raise InputError(f"not valid JSON: {err}", file=path, line=number) from err
+        except RecursionError as err:
+            raise InputError("JSON nested too deeply to read", file=path, line=number) from err
         if not isinstance(obj, dict):
             raise InputError("each line must be a JSON object", file=path, line=number)
         keys = set(obj)
@@ -277,6 +285,127 @@ def _check_json_number(value: object, name: str, typ: str, path: str, line: int)
                          "(it would be rounded)", file=path, line=line)
 
 
+#: Longest line we accept, in bytes. DuckDB refuses a CSV line of 2,000,000 bytes or more
+#: in the middle of a file, but silently drops such a line at the end of one (DuckDB
+#: 2.0.1, measured), so lines are measured here before DuckDB sees them.
+MAX_LINE_BYTES = 1_000_000
+#: Largest size a compressed file may unpack to (a small .gz can unpack to gigabytes).
+MAX_UNPACKED_BYTES = 1 << 30
+
+
+def _gunzip(data: bytes, path: str) -> bytes:
+    """Unpack gzip data in pieces, refusing more than MAX_UNPACKED_BYTES of output."""
+    unpacker = zlib.decompressobj(wbits=31)
+    parts: list[bytes] = []
+    size = 0
+    rest = data
+    try:
+        while rest:
+            part = unpacker.decompress(rest, 1 << 24)
+            size += len(part)
+            if size > MAX_UNPACKED_BYTES:
+                raise InputError(f"unpacks to more than {MAX_UNPACKED_BYTES:,} bytes; "
+                                 "split it into smaller files", file=path)
+            parts.append(part)
+            rest = unpacker.unconsumed_tail
+            if unpacker.eof:
+                if unpacker.unused_data:  # another gzip member follows
+                    rest = unpacker.unused_data
+                    unpacker = zlib.decompressobj(wbits=31)
+                else:
+                    break
+        if not unpacker.eof:
+            raise InputError("not a valid gzip file (it ends too early)", file=path)
+    except zlib.error as err:
+        raise InputError(f"not a valid gzip file ({err})", file=path) from err
+    return b"".join(parts)
+
+
+def _scan_lines(spec: Spec, data: bytes, path: str) -> int | None:
+    """Refuse a line longer than MAX_LINE_BYTES, naming it; count the data lines.
+
+    Returns the number of non-empty lines after the header (what DuckDB must
+    read) when the file has no quote character, else None: a quoted field may
+    hold a line break, and :func:`_count_quoted` counts those files.
+    """
+    raw = _gunzip(data, path) if spec.source.compression == "gzip" else data
+    if not raw:
+        return None
+    codes = np.frombuffer(raw, dtype=np.uint8)
+    breaks = np.flatnonzero((codes == 10) | (codes == 13))
+    edges = np.concatenate(([-1], breaks, [len(codes)]))
+    lengths = np.diff(edges) - 1
+    longest = int(lengths.argmax())
+    if lengths[longest] > MAX_LINE_BYTES:
+        # count \r\n as one break when naming the line
+        line = int(np.count_nonzero(codes[breaks[:longest]] == 10)) + 1 if longest else 1
+        raise InputError(f"the line is {int(lengths[longest]):,} bytes long, over the line "
+                         f"size limit of {MAX_LINE_BYTES:,} bytes", file=path, line=line)
+    if spec.source.format == "jsonl" or b'"' in raw:
+        return None
+    delim = (spec.source.delimiter or ("\t" if spec.source.format == "tsv" else ",")).encode()
+    if len(delim) == 1:
+        at = np.flatnonzero(codes == delim[0])
+        most = _max_fields(spec)
+        if len(at) >= most:
+            per_line = np.bincount(np.searchsorted(breaks, at), minlength=len(edges) - 1)
+            worst = int(per_line.argmax())
+            if per_line[worst] + 1 > most:
+                line = int(np.count_nonzero(codes[breaks[:worst]] == 10)) + 1
+                raise InputError(f"the row has {int(per_line[worst]) + 1:,} fields; the spec "
+                                 f"declares {len(spec.source.columns)}", file=path, line=line)
+    return max(int(np.count_nonzero(lengths)) - 1, 0)
+
+
+def _max_fields(spec: Spec) -> int:
+    """Most fields a row may have before it is refused outright (DuckDB ignores empty
+    trailing fields, so a few more than the columns are allowed; thousands are not)."""
+    return max(1024, 8 * len(spec.source.columns))
+
+
+def _count_quoted(spec: Spec, text: str, path: str) -> int | None:
+    """Records after the header of a CSV text with quotes, as DuckDB reads them (None if
+    the csv module cannot split it: then DuckDB's own errors are all there is). A row
+    with far more fields than the spec declares is refused here, naming its line."""
+    delim = spec.source.delimiter or ("\t" if spec.source.format == "tsv" else ",")
+    reader = csv.reader(io.StringIO(text.removeprefix("\ufeff"), newline=""),
+                        delimiter=delim, quotechar='"', doublequote=True)
+    limit = csv.field_size_limit()
+    csv.field_size_limit(max(limit, len(text) + 1))  # a quoted field may be the whole file
+    most = _max_fields(spec)
+    try:
+        records = 0
+        for row in reader:
+            if len(row) > most:
+                raise InputError(f"the row has {len(row):,} fields; the spec declares "
+                                 f"{len(spec.source.columns)}", file=path, line=reader.line_num)
+            records += bool(row)
+        return max(records - 1, 0)
+    except csv.Error:
+        return None
+    finally:
+        csv.field_size_limit(limit)
+
+
+def _count_problems(con: duckdb.DuckDBPyConnection, by_id: dict[int, _Candidate]) -> None:
+    """A file whose rows DuckDB read are fewer or more than its data lines is refused.
+
+    DuckDB may skip a line without an error (see MAX_LINE_BYTES); the store must
+    never hold part of a file while the lineage says all of it.
+    """
+    lo, hi = min(by_id), max(by_id)
+    counts = dict(con.execute(
+        "SELECT file_id, count(*) FROM measurements WHERE file_id BETWEEN ? AND ? "
+        "GROUP BY file_id", [lo, hi]).fetchall())
+    for fid, cand in by_id.items():
+        got = int(counts.get(fid, 0))
+        if cand.problem is None and cand.expected_rows is not None \
+                and got != cand.expected_rows:
+            cand.problem = InputError(
+                f"DuckDB read {got} row(s) but the file has {cand.expected_rows} data line(s); "
+                "nothing of it was loaded", file=cand.relative)
+
+
 def _inspect(spec: Spec, cand: _Candidate) -> None:
     """Cheap checks in Python that DuckDB would not do or would do silently."""
     if cand.size == 0:
@@ -284,11 +413,15 @@ def _inspect(spec: Spec, cand: _Candidate) -> None:
     fmt = spec.source.format
     assert cand.data is not None
     if fmt in ("csv", "tsv"):
+        cand.expected_rows = _scan_lines(spec, cand.data, cand.relative)
         text = _check_utf8(spec, cand.data, cand.relative)
+        if cand.expected_rows is None:
+            cand.expected_rows = _count_quoted(spec, text, cand.relative)
         _check_header(spec, cand.data, cand.relative)
         _check_quotes(spec, text, cand.relative)
         _check_line_endings(spec, text, cand.relative)
     elif fmt == "jsonl":
+        _scan_lines(spec, cand.data, cand.relative)
         _check_jsonl(spec, cand.data, cand.relative)
     elif fmt == "parquet" and not cand.data.startswith(b"PAR1"):
         raise InputError("not a Parquet file (no PAR1 magic bytes)", file=cand.relative)
@@ -515,7 +648,7 @@ def _reject_problems(con: duckdb.DuckDBPyConnection, spec: Spec,
         cand = by_link.get(link)
         if cand is None or cand.problem is not None:
             continue
-        text = str(message).split("\n")[0]
+        text = _short(str(message).split("\n")[0], link, cand.relative)
         if kind == "INVALID ENCODING":
             text = "bytes that are not UTF-8 text"
         cand.problem = InputError(text, file=cand.relative,
@@ -531,9 +664,9 @@ def _physical_line(spec: Spec, cand: _Candidate, record: int) -> int:
     raw = cand.data
     try:
         if spec.source.compression == "gzip":
-            raw = gzip.decompress(raw)
+            raw = _gunzip(raw, cand.relative)
         text = raw.decode("utf-8")
-    except (OSError, EOFError, zlib.error, UnicodeDecodeError):
+    except (OSError, EOFError, zlib.error, UnicodeDecodeError, InputError):
         return record
     if '"' not in text:
         return record
@@ -649,14 +782,27 @@ def _locate_failures(con: duckdb.DuckDBPyConnection, spec: Spec, failed: _ReadFa
             try:
                 con.execute(sql, {"links": [c.link]})
             except duckdb.Error as one:
-                c.problem = _from_duckdb(one, c.relative)
+                c.problem = _from_duckdb(one, c.relative, c.link)
     con.execute("DROP TABLE IF EXISTS tl_probe")
     if all(c.problem is None for c in failed.cands):
         first = str(failed.err).splitlines()[0]
         raise InputError(f"the batch could not be read: {first}") from failed.err
 
 
-def _from_duckdb(err: duckdb.Error, relative: str) -> InputError:
+#: Longest DuckDB message kept for a rejected file: DuckDB quotes the offending value,
+#: and the lineage (readable by every query user) must not hold a file's contents.
+MAX_MESSAGE = 200
+
+
+def _short(text: str, link: str | None = None, relative: str | None = None) -> str:
+    """One line of a DuckDB message, its staged path named as the user's, escaped, cut."""
+    if link and relative:
+        text = text.replace(link, relative)
+    text = printable(text)
+    return text if len(text) <= MAX_MESSAGE else text[: MAX_MESSAGE - 1] + "…"
+
+
+def _from_duckdb(err: duckdb.Error, relative: str, link: str | None = None) -> InputError:
     text = str(err)
     line = None
     for marker in ("in line ", "Line: "):
@@ -668,18 +814,32 @@ def _from_duckdb(err: duckdb.Error, relative: str) -> InputError:
     first = text.splitlines()[0]
     for prefix in ("Invalid Input Error: ", "Conversion Error: ", "Binder Error: "):
         first = first.replace(prefix, "")
-    return InputError(first, file=relative, line=line)
+    return InputError(_short(first, link, relative), file=relative, line=line)
 
 
 def _parquet_problems(con: duckdb.DuckDBPyConnection, spec: Spec,
                       by_link: dict[str, _Candidate]) -> None:
     want = [spec.source.header(n) for n in spec.source.columns]
-    rows = con.execute(
-        "SELECT file_name, list(name ORDER BY rowid) FROM "
-        "(SELECT *, row_number() OVER () AS rowid FROM parquet_schema($links)) "
-        "WHERE type IS NOT NULL GROUP BY file_name",
-        {"links": list(by_link)},
-    ).fetchall()
+    sql = ("SELECT file_name, list(name ORDER BY rowid) FROM "
+           "(SELECT *, row_number() OVER () AS rowid FROM parquet_schema($links)) "
+           "WHERE type IS NOT NULL GROUP BY file_name")
+    try:
+        rows = con.execute(sql, {"links": list(by_link)}).fetchall()
+    except duckdb.Error as err:
+        if _machine_trouble(err):
+            raise
+        # a damaged file (truncated, no footer, flipped bytes): find it, name it
+        rows = []
+        for link, cand in by_link.items():
+            try:
+                rows += con.execute(sql, {"links": [link]}).fetchall()
+            except duckdb.Error as one:
+                if _machine_trouble(one):
+                    raise
+                problem = _from_duckdb(one, cand.relative, link)
+                problem.message = "not a readable Parquet file: " + problem.message.replace(
+                    f" '{cand.relative}'", "")
+                cand.problem = problem
     for link, names in rows:
         cand = by_link[link]
         if sorted(names) != sorted(want) and cand.problem is None:
@@ -753,10 +913,16 @@ def append(
         if isinstance(matched, str):
             c.problem = InputError(matched, file=rel)
             continue
+        if (why := outside(path, root, spec.source.allow)) is not None:
+            c.problem = InputError(why, file=rel)
+            continue
         try:
             stat = path.stat()
         except OSError as err:
             c.problem = InputError(f"cannot read: {err.strerror}", file=rel)
+            continue
+        if (kind := irregular(stat)) is not None:
+            c.problem = InputError(f"is {kind}, not a regular file", file=rel)
             continue
         c.size, c.mtime = stat.st_size, _mtime(stat)
         prev = known.get(rel)
@@ -775,10 +941,16 @@ def append(
                 c.decision = "waiting"
                 continue
         try:
-            c.data = path.read_bytes()
+            # Read once: these bytes are hashed, checked and staged for DuckDB, so a
+            # file swapped meanwhile is loaded with the hash of what was loaded.
+            c.data, stat = read_once(path.resolve())
         except OSError as err:
             c.problem = InputError(f"cannot read: {err.strerror}", file=rel)
             continue
+        except ValueError as err:
+            c.problem = InputError(str(err), file=rel)
+            continue
+        c.mtime = _mtime(stat)
         c.size = len(c.data)
         c.sha256 = hashlib.sha256(c.data).hexdigest()
         if refused is not None and refused.sha256 == c.sha256:
@@ -973,16 +1145,15 @@ def _transaction(
             c.file_id = fid  # only files that get a lineage row take an id
             fid += 1
 
-    # DuckDB expands glob characters even in a list of paths, so a file called
-    # "a[1].csv" would read "a1.csv": such files are read through a plain-named link.
+    # DuckDB reads a private copy of the bytes that were hashed and checked, never the
+    # path again: a file replaced since is loaded as it was read, under its own hash.
+    # The plain names also keep DuckDB from expanding glob characters ("a[1].csv").
     suffix = ".gz" if spec.source.compression == "gzip" else ""
     for c in to_load:
-        c.link = str(c.path)
-        if GLOBBY & set(c.link):
-            link = tmp / f"f{c.file_id}.{spec.source.format}{suffix}"
-            if not link.exists():
-                os.symlink(c.path.resolve(), link)
-            c.link = str(link)
+        staged = tmp / f"f{c.file_id}.{spec.source.format}{suffix}"
+        if c.data is not None and not staged.exists():  # a retried transaction reuses it
+            staged.write_bytes(c.data)
+        c.link = str(staged)
     by_link = {c.link: c for c in to_load}
     if to_load:
         if progress:
@@ -1000,6 +1171,7 @@ def _transaction(
                 raise _ReadFailed(good, err) from err
             _nonfinite_problems(con, spec, {c.file_id: c for c in good})
             _shrink_problems(con, good, options.allow_shrink)
+            _count_problems(con, {c.file_id: c for c in good})
         if progress:
             progress("read", len(to_load), len(to_load))
     if not skip_bad and (problem := _first_problem(cands)) is not None:

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+import os
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any
@@ -16,6 +17,7 @@ from trendledger.errors import InputError, StoreError, first_line
 from trendledger.store import history
 from trendledger.store.db import first_row, stored_spec, utcnow
 from trendledger.store.ingest import cannot_write, database_path, rollback_quietly
+from trendledger.store.paths import outside, read_once
 from trendledger.views import moments
 
 
@@ -218,17 +220,27 @@ class CheckReport:
     #: overlapping or cumulative files count such rows twice in every fit); reported, like
     #: repeated rows, but data as loaded, not a disagreement between store and disk
     repeated_x: list[str] = field(default_factory=list)
+    #: "path: why" for a loaded file that is no longer a regular file inside the allowed
+    #: folders (a folder, a named pipe, a link out): checked by the same rule as append
+    unreadable: list[str] = field(default_factory=list)
 
     @property
     def ok(self) -> bool:
-        return not self.changed and not self.count_mismatch and not self.copies_differ
+        return (not self.changed and not self.count_mismatch and not self.copies_differ
+                and not self.unreadable)
 
     def to_dict(self) -> dict[str, Any]:
         return {**asdict(self), "ok": self.ok}
 
 
-def check(con: duckdb.DuckDBPyConnection, root: Path) -> CheckReport:
-    """Re-hash every loaded file still on disk and recount its rows in the store."""
+def check(con: duckdb.DuckDBPyConnection, root: Path,
+          allowed: tuple[str, ...] = ()) -> CheckReport:
+    """Re-hash every loaded file still on disk and recount its rows in the store.
+
+    A file is read as ``append`` reads it: through links only into the spec's
+    folder and ``allowed``, only if it is a regular file, in one open.
+    """
+    root = root.resolve()
     report = CheckReport()
     # rows a later file replaced by natural key moved to the history; they still count
     # for the file that brought them
@@ -251,11 +263,24 @@ def check(con: duckdb.DuckDBPyConnection, root: Path) -> CheckReport:
                 f"{path}: lineage says {recorded} rows, store has {stored}"
             )
         full = root / path
+        if not os.path.lexists(full):
+            report.missing.append(path)
+            continue
+        if (why := outside(full, root, allowed)) is not None:
+            report.unreadable.append(f"{path}: {why}")
+            continue
         try:
-            digest = hashlib.sha256(full.read_bytes()).hexdigest()
+            data, _ = read_once(full.resolve())
         except FileNotFoundError:
             report.missing.append(path)
             continue
+        except OSError as err:
+            report.unreadable.append(f"{path}: cannot read ({err.strerror})")
+            continue
+        except ValueError as err:
+            report.unreadable.append(f"{path}: {err}")
+            continue
+        digest = hashlib.sha256(data).hexdigest()
         if digest != sha:
             report.changed.append(path)
         else:
