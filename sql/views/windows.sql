@@ -117,26 +117,18 @@ line AS (
     SELECT
         *,
         CASE WHEN sxx > 0 THEN sxy / sxx * sxy ELSE 0.0 END + rss AS syy,
-        CASE WHEN n >= 2 AND x_min < x_max THEN sxy / sxx END AS b_ls,
-        CASE WHEN n >= 3 THEN rss END AS rss_ls
+        __line__.b_ls AS b_ls,
+        CASE WHEN __line__.has_df THEN rss END AS rss_ls
     FROM sums
 ),
 quantiles AS MATERIALIZED (
-    SELECT n, tl_t_crit((1 - __level__) / 2, n - 2) AS t_crit
-    FROM (SELECT DISTINCT n FROM pass1 WHERE n >= 3) AS sizes
+    SELECT n, tl_t_crit((1 - __level__) / 2, __line__.df) AS t_crit
+    FROM (SELECT DISTINCT n FROM pass1 WHERE __line__.has_df) AS sizes
 ),
 classified AS (
     SELECT
         *,
-        CASE
-            WHEN n < 3 THEN 'too_few_points'
-            WHEN x_min = x_max THEN 'constant_x'
-            WHEN NOT (sxx > 0 AND isfinite(sxx) AND isfinite(syy) AND isfinite(rss_noise))
-                THEN 'out_of_range'
-            WHEN y_min = y_max THEN 'constant_y'
-            WHEN rss_ls <= rss_noise THEN 'perfect_fit'
-            ELSE 'ok'
-        END AS stage
+        __line__.stage AS stage
     FROM line
 ),
 estimates AS (
@@ -146,22 +138,19 @@ estimates AS (
         stage,
         x_mean,
         sxx,
-        CASE WHEN b_ls IS NOT NULL AND y_min = y_max THEN 0.0 ELSE b_ls END AS slope,
-        CASE
-            WHEN b_ls IS NOT NULL AND y_min = y_max THEN y_min
-            ELSE y_mean - b_ls * x_mean
-        END AS intercept,
+        __line__.fit_slope AS slope,
+        __line__.fit_intercept AS intercept,
         CASE
             WHEN stage = 'ok' THEN rss_ls
-            WHEN stage IN ('constant_y', 'perfect_fit') THEN 0.0
-        END AS rss_fit,
+            WHEN stage IN (__line__.no_spread, 'perfect_fit') THEN 0.0
+        END AS rss,
         CASE
             WHEN stage = 'ok' THEN b_ls * sxy / syy
             WHEN stage = 'perfect_fit' THEN 1.0
-            WHEN stage = 'too_few_points' AND b_ls IS NOT NULL AND y_min < y_max THEN 1.0
+            WHEN stage = 'too_few_points' AND b_ls IS NOT NULL AND __line__.has_spread THEN 1.0
         END AS r2,
         CASE
-            WHEN stage = 'ok' THEN 1 - rss_ls / syy * (n - 1) / (n - 2)
+            WHEN stage = 'ok' THEN __line__.r2_adj_ok
             WHEN stage = 'perfect_fit' THEN 1.0
         END AS r2_adj,
         t_crit
@@ -171,9 +160,9 @@ estimates AS (
 errors AS (
     SELECT
         *,
-        sqrt(rss_fit / (n - 2)) AS resid_sd,
-        sqrt(rss_fit / (n - 2) / sxx) AS slope_se,
-        sqrt(rss_fit / (n - 2) * (1 / n + x_mean * x_mean / sxx)) AS intercept_se
+        sqrt(rss / __line__.df) AS resid_sd,
+        sqrt(rss / __line__.df / sxx) AS slope_se,
+        __line__.intercept_se AS intercept_se
     FROM estimates
 ),
 intervals AS (
@@ -214,7 +203,7 @@ SELECT
     f.slope_se,
     f.intercept_se,
     f.slope_t,
-    CASE WHEN f.slope_t IS NOT NULL THEN tl_t_two_sided(f.slope_t, g.n - 2) END AS slope_p,
+    CASE WHEN f.slope_t IS NOT NULL THEN tl_t_two_sided(f.slope_t, __line__.df_of_g) END AS slope_p,
     f.slope_lo,
     f.slope_hi,
     f.intercept_lo,
