@@ -94,8 +94,8 @@ def fleets(tmp_path_factory: pytest.TempPathFactory) -> tuple[pd.DataFrame, pd.D
     ref = []
     for (lot, cell), g in data.groupby(["lot", "cell"]):
         fit = sm.OLS(g["y"].to_numpy(), sm.add_constant(g["x"].to_numpy())).fit()
-        ref.append((lot, cell, len(g), fit.params[1], fit.bse[1]))
-    per_unit = pd.DataFrame(ref, columns=["lot", "cell", "n", "slope", "se"]).set_index(
+        ref.append((lot, cell, len(g), fit.params[1], fit.bse[1], fit.rsquared))
+    per_unit = pd.DataFrame(ref, columns=["lot", "cell", "n", "slope", "se", "r2"]).set_index(
         ["lot", "cell"])
     return data, per_unit, fleet, units
 
@@ -191,7 +191,7 @@ def test_poolability_against_anova(fleets) -> None:
 
 def test_leave_one_out_against_brute_force(fleets) -> None:
     _, per_unit, fleet, units = fleets
-    checked = 0
+    checked = flagged = 0
     for lot in fleet[(fleet["units"] >= 3) & (fleet["units"] <= 30)].index[:8]:
         unit = per_unit.loc[lot]
         b, v = unit["slope"].to_numpy(), unit["se"].to_numpy() ** 2
@@ -214,9 +214,13 @@ def test_leave_one_out_against_brute_force(fleets) -> None:
             assert close(got["slope_z_p"], 2 * stats.norm.sf(abs(z)), rel=1e-8), (lot, cell)
             shrunk = mean_all + tau2_all / (tau2_all + v[i]) * (b[i] - mean_all)
             assert close(got["slope_shrunk"], shrunk), (lot, cell)
-            assert got["unlike"] == (2 * stats.norm.sf(abs(z)) < 0.01 / k)
+            # Bonferroni over the fleet at the fit's alpha, for units that follow a line
+            # (r2 >= min_r2, both defaults: 0.01 and 0.9)
+            linear = unit.loc[cell, "r2"] >= 0.9
+            assert got["unlike"] == (2 * stats.norm.sf(abs(z)) < 0.01 / k and linear)
+            flagged += got["unlike"]
             checked += 1
-    assert checked > 40
+    assert checked > 40 and 0 < flagged < checked
 
 
 def test_two_unit_fleet_has_no_leave_one_out(fleets) -> None:

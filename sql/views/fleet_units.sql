@@ -23,6 +23,8 @@
 --   slope_shrunk    empirical-Bayes slope: the fleet's random-effects mean m plus
 --                   tau^2 / (tau^2 + slope_se^2) (slope - m), with the whole fleet's tau
 --   unlike          slope_z_p below the fit's alpha divided by units (Bonferroni over the fleet)
+--                   and the unit's r2 at least the fit's min_r2: a unit that does not follow a
+--                   line is reported as low_r2, and its one slope says little about it
 --   note            why values are missing: 'not in the fleet: <fit status>', 'fewer than 3
 --                   units in the fleet' (no leave-one-out spread)
 --
@@ -40,6 +42,7 @@ WITH unit AS MATERIALIZED (
         n,
         slope,
         slope_se,
+        r2,
         status,
         coalesce(status = 'ok' AND slope_se > 0 AND isfinite(slope_se), false) AS tl_in,
         CASE WHEN status = 'ok' AND slope_se > 0 AND isfinite(slope_se)
@@ -141,7 +144,9 @@ SELECT
             THEN r.tl_mean + r.tl_tau2 / (r.tl_tau2 + r.slope_se * r.slope_se)
                 * (r.slope - r.tl_mean)
     END AS slope_shrunk,
-    CASE WHEN t.tl_z_p IS NOT NULL THEN t.tl_z_p < __alpha__ / r.tl_k END AS unlike,
+    CASE
+        WHEN t.tl_z_p IS NOT NULL THEN t.tl_z_p < __alpha__ / r.tl_k AND r.r2 >= __min_r2__
+    END AS unlike,
     CASE
         WHEN NOT r.tl_in THEN 'not in the fleet: ' || r.status
         WHEN r.tl_k < 3 THEN 'fewer than 3 units in the fleet'
