@@ -217,10 +217,15 @@ line_se AS (
         CASE
             WHEN tl_pool = 'all' THEN tl_s * sqrt(1 / tl_nn + tl_x * tl_x / tl_sxx_all)
         END AS tl_intercept_se,
-        tl_t_crit((1 - __level__) / 2, tl_df) AS tl_t_level,
-        tl_t_crit(0.05, tl_df) AS tl_t_bound,
+        -- both quantiles from one call of the macro (each call site costs planning time)
+        list_transform([(1 - __level__) / 2, 0.05], lambda tl_q: tl_t_crit(tl_q, tl_df))
+            AS tl_t_both,
         CAST(__limit_or_null__ AS DOUBLE) AS tl_limit
     FROM line
+),
+quantiles AS (
+    SELECT *, tl_t_both[1] AS tl_t_level, tl_t_both[2] AS tl_t_bound
+    FROM line_se
 ),
 projected AS (
     -- the crossing view's Fieller roots (crossing.sql) for each pooled line: one for 'all'
@@ -238,7 +243,7 @@ projected AS (
             END,
             lambda tl_l: {'xm': tl_l.xm, 'n': tl_l.n, 'u0': (tl_limit - tl_l.ym) / tl_slope}
         ) END AS tl_lines
-    FROM line_se
+    FROM quantiles
 ),
 crossed AS (
     SELECT

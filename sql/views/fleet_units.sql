@@ -125,7 +125,7 @@ z AS (
 tested AS (
     SELECT
         *,
-        tl_t_two_sided(tl_z, 1e100) AS tl_z_p
+        tl_norm_two_sided(tl_z) AS tl_z_p
     FROM z
 )
 SELECT
