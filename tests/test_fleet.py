@@ -332,3 +332,31 @@ def test_fleet_spec_validation(change: str, words: str) -> None:
         return
     with pytest.raises(SpecError, match=words.replace("[", r"\[").replace("(", r"\(")):
         parse(text)
+
+
+def test_deviant_unit_is_named_by_watch_report_and_cli(tmp_path: Path) -> None:
+    """Invented: 12 units fading at -0.010 per step, one (cell 5) at -0.020 in a clean line."""
+    rng = np.random.default_rng(12)
+    frames = []
+    for cell in range(12):
+        x = np.arange(1.0, 41.0)
+        slope = -0.020 if cell == 5 else -0.010 + rng.normal(0, 2e-5)
+        frames.append(pd.DataFrame({"lot": 1, "cell": cell, "x": x,
+                                    "y": 3.0 + slope * x + rng.normal(0, 0.002, len(x))}))
+    lab = write_store(tmp_path, pd.concat(frames, ignore_index=True))
+    with Ledger.open(lab.store, read_only=True) as led:
+        alerts = led.watch()
+        flagged = led.fleet(units=True, where="unlike")
+        report = led.report(out=tmp_path / "report")
+    assert list(alerts["unit"]) == ["1 / 5"] and list(alerts["reason"]) == ["unlike_fleet"]
+    assert alerts["detail"].iloc[0].startswith("slope -0.02 against -0.01 for its 11 siblings")
+    assert list(flagged["cell"]) == [5]
+    page = report.read_text(encoding="utf-8")
+    assert "Units unlike their fleet" in page and "regulated decision" in page
+    assert (tmp_path / "report" / "fleets.png").is_file()
+    from .test_cli import tl
+
+    code, out, _ = tl("fits", "--fleet", "--store", str(lab.store))
+    assert code == 0 and "pool" in out.splitlines()[0] and "qualified review" in out
+    code, _, err = tl("fits", "--fleet", "--view", "points", "--store", str(lab.store))
+    assert code == 2 and "--fleet" in err

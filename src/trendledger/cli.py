@@ -251,7 +251,7 @@ def fits(
 @app.command()
 def watch(
     name: Annotated[str | None, typer.Argument(help="Fit name (default: every fit)")] = None,
-    fail_on: Annotated[str | None, typer.Option("--fail-on", help="Exit 1 on an alert at or above this reason: too_few_points < low_r2 < outliers < slope_changed < crossing_soon (default: any alert)")] = None,
+    fail_on: Annotated[str | None, typer.Option("--fail-on", help="Exit 1 on an alert at or above this reason: too_few_points < low_r2 < outliers < unlike_fleet < slope_changed < crossing_soon (default: any alert)")] = None,
     fmt: FormatOpt = "table",
     store: StoreOpt = None,
     wait: WaitOpt = DEFAULT_WAIT,

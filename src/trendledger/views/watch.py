@@ -38,6 +38,7 @@ SEVERITY: tuple[str, ...] = (
     "too_few_points",
     "low_r2",
     "outliers",
+    "unlike_fleet",
     "slope_changed",
     "crossing_soon",
 )
