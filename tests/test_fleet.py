@@ -360,3 +360,22 @@ def test_deviant_unit_is_named_by_watch_report_and_cli(tmp_path: Path) -> None:
     assert code == 0 and "pool" in out.splitlines()[0] and "qualified review" in out
     code, _, err = tl("fits", "--fleet", "--view", "points", "--store", str(lab.store))
     assert code == 2 and "--fleet" in err
+
+
+def test_spec_update_regroups_the_fleets(tmp_path: Path) -> None:
+    """Without fleet = [...] every unit is one fleet; adding it splits them by lot."""
+    data = random_fleets(np.random.default_rng(3), 4)
+    data = data[data["lot"].isin([0, 1, 3])]
+    lab = write_store(tmp_path, data, FLEET_SPEC.replace('fleet = ["lot"]\n', ""))
+    with Ledger.open(lab.store, read_only=True) as led:
+        whole = led.fleet()
+    assert list(whole.columns[:2]) == ["units", "n"] and len(whole) == 1
+    assert whole["units"].iloc[0] == data.groupby(["lot", "cell"]).ngroups
+    (tmp_path / "spec.toml").write_text(FLEET_SPEC, encoding="utf-8")
+    with Ledger.open(lab.store) as led:
+        change = led.update_spec(tmp_path / "spec.toml")
+        assert change.changed_fits == ["fade"]
+        split = led.fleet(sort="lot")
+    assert list(split["lot"]) == [0, 1, 3]
+    assert list(split["units"]) == [int(data[data["lot"] == lot]["cell"].nunique())
+                                    for lot in (0, 1, 3)]
