@@ -348,7 +348,7 @@ def test_deviant_unit_is_named_by_watch_report_and_cli(tmp_path: Path) -> None:
         alerts = led.watch()
         flagged = led.fleet(units=True, where="unlike")
         report = led.report(out=tmp_path / "report")
-    assert list(alerts["unit"]) == ["1 / 5"] and list(alerts["reason"]) == ["unlike_fleet"]
+    assert list(alerts["unit_label"]) == ["1 / 5"] and list(alerts["reason"]) == ["unlike_fleet"]
     assert alerts["detail"].iloc[0].startswith("slope -0.02 against -0.01 for its 11 siblings")
     assert list(flagged["cell"]) == [5]
     page = report.read_text(encoding="utf-8")
