@@ -46,6 +46,7 @@ test: $(STAMP) system lint typecheck
 
 bench: $(STAMP)
 	$(BIN)/python bench/append_bench.py
+	$(BIN)/python bench/fleet_bench.py
 
 fuzz: $(STAMP)
 	TRENDLEDGER_FUZZ=long $(BIN)/pytest -q tests/test_hostile_input.py tests/test_crash.py tests/test_races.py

@@ -29,7 +29,15 @@ STEPS: list[tuple[str, str]] = [
      "trendledger lineage --path 'incoming/2026-03-22/c30.csv' --format markdown"),
     ("The day a file arrived cut short, and its re-sent copy:",
      "trendledger lineage --files --path 'incoming/2026-04-11/c33.csv' --format csv"),
-    ("Today's alerts:",
+    ("Which cell is unlike its siblings? (each cell against the random-effects mean of the "
+     "others)",
+     "trendledger fits --view fleet_units --sort slope_z_p --limit 5"),
+    ("The fleet as a whole: spread of the slopes, and may the cells be pooled (ICH Q1E)?",
+     "trendledger fits --fleet --format json"),
+    ("Today's alerts. low_r2: the cell no longer follows a straight line; outliers: readings "
+     "far from its line; slope_changed: its latest week's slope differs from its earlier "
+     "trend; unlike_fleet: its slope differs from the other cells' (the knee cells fade fast "
+     "too, but they bend, so only c49 is compared):",
      "trendledger watch"),
     ("Ask anything in SQL (read-only; parameters are bound, never pasted):",
      "trendledger query \"SELECT f.cell, f.slope, count(DISTINCT m.file_id) AS files "

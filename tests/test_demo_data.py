@@ -167,13 +167,13 @@ def test_data_of_a_cell_does_not_depend_on_the_other_cells() -> None:
 # --------------------------------------------------------------------------- structure
 
 
-def test_layout_48_files_per_day_on_consecutive_dates(first: Path) -> None:
+def test_layout_49_files_per_day_on_consecutive_dates(first: Path) -> None:
     days = sorted(p.name for p in (first / "incoming").iterdir())
     want = [(date(2026, 3, 2) + timedelta(days=i)).isoformat() for i in range(90)]
     assert days == want
     for name in days:
         files = sorted(p.name for p in (first / "incoming" / name).iterdir())
-        assert files == [f"c{i:02d}.csv" for i in range(1, 49)]
+        assert files == [f"c{i:02d}.csv" for i in range(1, 50)]
 
 
 def test_every_complete_file_has_header_four_rows_and_unix_newlines(first: Path) -> None:
@@ -285,6 +285,13 @@ def test_steady_cells_are_straight_lines_with_slope_in_band(final: Path) -> None
         assert -slope == pytest.approx(rates[cell], abs=5e-6), cell
 
 
+def test_fast_cell_is_a_straight_line_faster_than_every_steady_cell(final: Path) -> None:
+    slope, r2 = fit(*series(final, PLAN.fast_cell))
+    assert r2 > MIN_R2_STEADY
+    assert -slope == pytest.approx(expected()["fast"]["rate"], abs=5e-6)
+    assert -slope > 2 * PLAN.fade_band[1]
+
+
 def test_linearity_check_rejects_the_uncorrected_delivery(first: Path) -> None:
     # control: the same check fails when the mAh file is taken at face value
     _, r2 = fit(*series(first, PLAN.resent[1]))
@@ -368,9 +375,14 @@ def test_glitch_cell_is_steady_apart_from_its_glitches(final: Path) -> None:
 def test_expected_partitions_the_cells() -> None:
     e = expected()
     steady, knee, glitch = set(e["steady"]), set(e["knee"]), {e["glitch"]["cell"]}
+    fast = {e["fast"]["cell"]}
     assert len(steady) == 44 and knee == {"c07", "c23", "c41"} and glitch == {"c15"}
-    assert steady | knee | glitch == set(PLAN.cells)
+    assert fast == {"c49"}
+    assert steady | knee | glitch | fast == set(PLAN.cells)
     assert not (steady & knee or steady & glitch or knee & glitch)
+    assert not fast & (steady | knee | glitch)
+    # the fast cell fades fast_factor times faster than the band its siblings are drawn from
+    assert e["fast"]["rate"] >= PLAN.fast_factor * PLAN.fade_band[0]
     assert e["truncated"]["path"] == "incoming/2026-04-11/c33.csv"
     assert e["resent"]["path"] == "incoming/2026-03-22/c30.csv"
     for k in e["knee"].values():

@@ -77,11 +77,13 @@ def exported(tmp_path_factory: pytest.TempPathFactory) -> Exported:
 
 def check_views(exported: Exported, dialect: str, fetch: Any) -> None:
     names = exported.available(dialect)
-    # the fits and their companions must all be there; only the DuckDB-formatted alerts
-    # and the table macro may be missing
-    assert not [n for n in exported.want if n not in names and not n.endswith("_alerts")]
+    # the fits and their companions must all be there; only the DuckDB-formatted alerts, the
+    # fleet view (DuckDB list functions) and the table macro may be missing
+    assert not [n for n in exported.want if n not in names
+                and not n.endswith(("_alerts", "_fleet"))]
     assert {f"fit_fade{s}" for s in ("", "_moments", "_windows", "_points", "_change",
-                                     "_crossing", "_full", "_full_moments")} <= set(names)
+                                     "_crossing", "_full", "_full_moments",
+                                     "_fleet_units")} <= set(names)
     for name in names:
         columns, want = exported.want[name]
         got_columns, got = fetch(name)

@@ -195,7 +195,7 @@ def test_fits_table_has_every_group_and_marks_the_alerting_ones(demo: dict[str, 
     page = parse(demo["index"])
     alerting = {a["data-group"] for a in page.tables["alerts"]["attrs"]}
     rows = page.rows("fits")
-    assert [r["cell"] for r in rows] == [f"c{i:02d}" for i in range(1, 49)]
+    assert [r["cell"] for r in rows] == [f"c{i:02d}" for i in range(1, 50)]
     assert {r["cell"] for r in rows if r["alert"] == "alert"} == alerting
     marked = {a["data-group"] for a in page.tables["fits"]["attrs"] if a.get("class") == "alert"}
     assert marked == alerting

@@ -1,6 +1,7 @@
 """Alerts (sql/views/alerts.sql) and ``trendledger watch``.
 
-Two stores: the bundled Bench 7 demo (48 cells, three knee cells, one glitching channel), whose
+Two stores: the bundled Bench 7 demo (49 cells, three knee cells, one glitching channel, one
+cell fading fast in a straight line), whose
 alerts must name exactly the cells the scenario plants (demo_data.expected() is the source),
 and a small lab whose cells are built to trip one reason each, read through the API and the CLI.
 """
@@ -26,6 +27,7 @@ from .test_cli import tl
 EXPECTED = demo_data.expected()
 KNEES = sorted(EXPECTED["knee"])
 GLITCH = EXPECTED["glitch"]["cell"]
+FAST = EXPECTED["fast"]["cell"]
 
 
 @pytest.fixture(scope="module")
@@ -81,8 +83,20 @@ def test_demo_outliers_are_exactly_the_glitch_readings(demo_store: Path) -> None
 
 
 def test_demo_alerts_name_no_other_cell(demo_alerts: pd.DataFrame) -> None:
-    # demo_data.expected(): the knee cells and the glitching channel, and no steady cell
-    assert set(demo_alerts["unit_label"]) == {*KNEES, GLITCH}
+    # demo_data.expected(): the knee cells, the glitching channel and the fast cell, and no
+    # steady cell
+    assert set(demo_alerts["unit_label"]) == {*KNEES, GLITCH, FAST}
+
+
+def test_demo_unlike_fleet_names_exactly_the_fast_cell(demo_alerts: pd.DataFrame) -> None:
+    # demo_data.expected()["fast"]: the one cell fading in a straight line far faster than its
+    # siblings; the knee cells fade faster too, but bend (low_r2), so their slope is not compared
+    unlike = demo_alerts[demo_alerts["reason"] == "unlike_fleet"]
+    assert list(unlike["unit_label"]) == [FAST]
+    assert set(demo_alerts.loc[demo_alerts["unit_label"] == FAST, "reason"]) == {"unlike_fleet"}
+    detail = unlike["detail"].iloc[0]
+    assert detail.startswith("slope -0.0004") and "against -0.0001" in detail
+    assert "for its 48 siblings (z -" in detail and "< 0.01 / 49)" in detail
 
 
 def test_demo_alert_rows(demo_alerts: pd.DataFrame) -> None:
@@ -283,7 +297,8 @@ def test_failing_follows_the_severity_order() -> None:
     assert failing(frame) and failing(frame, "low_r2") and failing(frame, "outliers")
     assert not failing(frame, "slope_changed") and not failing(frame, "crossing_soon")
     assert not failing(frame.iloc[:0])
-    assert SEVERITY == ("too_few_points", "low_r2", "outliers", "slope_changed", "crossing_soon")
+    assert SEVERITY == ("too_few_points", "low_r2", "outliers", "unlike_fleet", "slope_changed",
+                        "crossing_soon")
 
 
 def test_duckdb_cli_reads_the_alerts_and_the_break_macro(demo_store: Path,

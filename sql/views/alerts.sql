@@ -1,13 +1,14 @@
 -- What needs a look today: one row per group and reason (too_few_points, low_r2, outliers,
--- slope_changed, crossing_soon), with a short detail and the group's latest x and date.
+-- unlike_fleet, slope_changed, crossing_soon), with a short detail and the group's latest x and
+-- date.
 
 -- Columns:
 --   fit_name        the fit's name (so the alerts of several fits can be stacked)
 --   unit_label      the group values as text joined by ' / ' (a NULL value written NULL)
 --   group columns   as in the fit view
 --   reason          one of the words below
---   severity        1 too_few_points, 2 low_r2, 3 outliers, 4 slope_changed, 5 crossing_soon
---                   (the order `trendledger watch --fail-on` uses)
+--   severity        1 too_few_points, 2 low_r2, 3 outliers, 4 unlike_fleet, 5 slope_changed,
+--                   6 crossing_soon (the order `trendledger watch --fail-on` uses)
 --   detail          the numbers behind the reason, in words, e.g. 'r2 0.773 < 0.9'
 --   latest_x        the group's largest x (x_max of the fit view)
 --   latest_date     the group's latest value of the spec's first date or timestamp field, NULL
@@ -25,6 +26,9 @@
 --                   that meets the limit at or after the group's first x, whose slope is
 --                   significant at alpha or which fits exactly) at most horizon x-units after
 --                   latest_x, or has already reached it
+--   unlike_fleet    the fleet_units view flags the unit: its slope differs from the
+--                   random-effects mean of the other units of its fleet (z test, p below alpha
+--                   divided by the fleet's units), and it follows a line (r2 >= min_r2)
 -- A group has no row when nothing is wrong. Group columns must not be named like a column of
 -- this view or a working column (n, r2, slope, slope_p, status, x_min, x_mean, y_mean,
 -- outliers, flagged_x, cross_x).
@@ -86,13 +90,13 @@ reasons AS (
     FROM flagged
     WHERE outliers > 0
     UNION ALL
-    SELECT __group__, 'slope_changed', 4,
+    SELECT __group__, 'slope_changed', 5,
         format('slope {:.3g} in the window from {} against {:.3g} before: p {:.2g} < {:g}',
             slope_recent, window_start, slope_before, difference_p, __alpha__)
     FROM __change_view_if_any__
     WHERE difference_p < __alpha__
     UNION ALL
-    SELECT __group__, 'crossing_soon', 5,
+    SELECT __group__, 'crossing_soon', 6,
         CASE
             WHEN cross_x <= latest_x
                 THEN format('line reached the limit {:g} at x = {:.4g}, before the latest x {:g}',
@@ -104,6 +108,12 @@ reasons AS (
     FROM crossing
     -- a line that met the limit before the first x moves away from it (crossing view)
     WHERE cross_x >= x_min AND cross_x <= latest_x + CAST(__horizon_or_null__ AS DOUBLE)
+    UNION ALL
+    SELECT __group__, 'unlike_fleet', 4,
+        format('slope {:.3g} against {:.3g} for its {} siblings (z {:.3g}, p {:.2g} < {:g} / {})',
+            slope, fleet_slope, units - 1, slope_z, slope_z_p, __alpha__, units)
+    FROM __fleet_units_view__
+    WHERE unlike
 )
 SELECT
     __fit_name__ AS fit_name,

@@ -300,31 +300,40 @@ def fits(
     limit: Annotated[int | None, typer.Option("--limit", help="At most this many rows")] = None,
     view: Annotated[str | None, typer.Option("--view", help="A companion view, e.g. windows, points, change, crossing, alerts")] = None,
     break_at: Annotated[float | None, typer.Option("--break-at", help="Chow test for a break in each group's line at this x")] = None,
+    fleet: Annotated[bool, typer.Option("--fleet", help="One row per fleet: pooled and random-effects slopes, spread, poolability (--view fleet_units: each unit against its fleet)")] = False,
     fmt: FormatOpt = "table",
     timeout: TimeoutOpt = limits.DEFAULT_TIMEOUT,
     store: StoreOpt = None,
     wait: WaitOpt = DEFAULT_WAIT,
 ) -> None:
     """Per-group linear fits from the store's views."""
-    from trendledger.views.watch import CAUTION
+    from trendledger.views.watch import CAUTION, POOL_CAUTION
 
+    if fleet and (view or break_at is not None):
+        raise typer.BadParameter("give --fleet alone, not with --view or --break-at",
+                                 param_hint="--fleet")
     try:
         with _open(store, read_only=True, wait=wait) as led:
-            df = led.fits(name, where, sort=sort, desc=desc, limit=limit, view=view,
-                          break_at=break_at, timeout=timeout)
+            if fleet:
+                df = led.fleet(name, where, sort=sort, desc=desc, limit=limit)
+            else:
+                df = led.fits(name, where, sort=sort, desc=desc, limit=limit, view=view,
+                              break_at=break_at, timeout=timeout)
     except TrendledgerError as err:
         _fail(err)
         return
     _print(df, fmt)
+    # projections and pooling: the caution goes under a table, to stderr beside machine formats
     if view == "crossing":
-        # a projection: the caution goes under a table, to stderr beside machine formats
         typer.echo(CAUTION, err=fmt not in ("table", "markdown"))
+    if fleet or view == "fleet":
+        typer.echo(POOL_CAUTION, err=fmt not in ("table", "markdown"))
 
 
 @app.command()
 def watch(
     name: Annotated[str | None, typer.Argument(help="Fit name (default: every fit)")] = None,
-    fail_on: Annotated[str | None, typer.Option("--fail-on", help="Exit 1 on an alert at or above this reason: too_few_points < low_r2 < outliers < slope_changed < crossing_soon (default: any alert)")] = None,
+    fail_on: Annotated[str | None, typer.Option("--fail-on", help="Exit 1 on an alert at or above this reason: too_few_points < low_r2 < outliers < unlike_fleet < slope_changed < crossing_soon (default: any alert)")] = None,
     fmt: FormatOpt = "table",
     store: StoreOpt = None,
     wait: WaitOpt = DEFAULT_WAIT,

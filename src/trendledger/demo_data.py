@@ -1,4 +1,4 @@
-"""Bundled demo scenario: "Bench 7", a battery test lab cycling 48 lithium cells.
+"""Bundled demo scenario: "Bench 7", a battery test lab cycling 49 lithium cells.
 
 Why this exists: trendledger has to be shown, and tested, on data that has the
 awkward features real daily instrument drops have -- units that behave, units that
@@ -21,6 +21,8 @@ the cycle counter keeps running across days (day ``d`` holds cycles
 * Knee cells follow the same law until their knee day, then fade
   ``knee_factor`` times faster (factor drawn per cell from ``knee_factor_band``)
   and run a little warmer.
+* The fast cell fades in a clean straight line, ``fast_factor`` times faster than
+  the rate drawn for it from ``fade_band``: a unit unlike its siblings.
 * The glitch cell fades steadily, but on each of ``glitch_days`` one reading
   (a drawn cycle of that day) comes out ``glitch_drop_band`` Ah too low.
 * The truncated file (``truncated``) is written cut in the middle of its last
@@ -100,7 +102,7 @@ _NOISE_CLIP = 3.0
 
 
 def _default_cells() -> tuple[str, ...]:
-    return tuple(f"c{i:02d}" for i in range(1, 49))
+    return tuple(f"c{i:02d}" for i in range(1, 50))
 
 
 @dataclass(frozen=True)
@@ -126,6 +128,9 @@ class DemoPlan:
     knees: tuple[tuple[str, int], ...] = (("c07", 57), ("c23", 61), ("c41", 64))
     knee_factor_band: tuple[float, float] = (7.0, 10.0)
     glitch_cell: str = "c15"
+    #: the cell that fades in a straight line fast_factor times faster than its draw
+    fast_cell: str = "c49"
+    fast_factor: float = 3.0
     #: days on which the glitch cell reports one reading far too low
     glitch_days: tuple[int, ...] = (9, 27, 44, 68, 83)
     #: how far too low, in Ah
@@ -143,6 +148,7 @@ class DemoPlan:
             raise ValueError("need at least one day and two cycles per day")
         special = [c for c, _ in self.knees] + [
             self.glitch_cell,
+            self.fast_cell,
             self.truncated[1],
             self.resent[1],
         ]
@@ -159,6 +165,8 @@ class DemoPlan:
                 raise ValueError(f"day {day} is outside the run (0..{self.n_days - 1})")
         if self.glitch_cell in self.knee_cells:
             raise ValueError("the glitch cell must fade steadily apart from its glitches")
+        if self.fast_cell in (*self.knee_cells, self.glitch_cell):
+            raise ValueError("the fast cell must fade in a clean straight line")
 
     @property
     def knee_cells(self) -> tuple[str, ...]:
@@ -169,9 +177,10 @@ class DemoPlan:
     def steady_cells(self) -> tuple[str, ...]:
         """Cells whose true capacity is a straight line over the whole run.
 
-        The truncated and re-sent cells are steady: only their files are flawed.
+        The truncated and re-sent cells are steady: only their files are flawed. The fast
+        cell is a straight line too, but at a rate outside ``fade_band``, so it is not here.
         """
-        odd = set(self.knee_cells) | {self.glitch_cell}
+        odd = set(self.knee_cells) | {self.glitch_cell, self.fast_cell}
         return tuple(c for c in self.cells if c not in odd)
 
     def date_of(self, day_index: int) -> date:
@@ -219,6 +228,8 @@ def _rng(plan: DemoPlan, stream: int, cell: str, day: int = 0) -> np.random.Gene
 def _law(plan: DemoPlan, cell: str) -> _CellLaw:
     rng = _rng(plan, _STREAM_CELL, cell)
     fade_rate = float(rng.uniform(*plan.fade_band))
+    if cell == plan.fast_cell:
+        fade_rate *= plan.fast_factor
     temp_offset = float(rng.normal(0.0, 0.8))
     knee_factor = float(rng.uniform(*plan.knee_factor_band))
     knee_day = dict(plan.knees).get(cell)
@@ -370,6 +381,7 @@ def expected(plan: DemoPlan = DEFAULT_PLAN, horizon: float = 200.0) -> dict[str,
     * ``glitch``: the glitch cell with its bad (day, cycle, drop) readings;
     * ``truncated`` / ``resent``: the flawed deliveries, with date and path
       relative to the data root;
+    * ``fast``: the fast cell and its fade rate;
     * ``fade_rate``: the true (pre-knee) fade rate of every cell, Ah per cycle;
     * ``true_capacity_end``: noise-free capacity at the last cycle, per cell;
     * ``eol_cycle``: noise-free cycle at which each cell reaches the end-of-life
@@ -433,6 +445,7 @@ def expected(plan: DemoPlan = DEFAULT_PLAN, horizon: float = 200.0) -> dict[str,
         "steady": list(plan.steady_cells),
         "knee": knee,
         "glitch": {"cell": plan.glitch_cell, "readings": glitches},
+        "fast": {"cell": plan.fast_cell, "rate": laws[plan.fast_cell].fade_rate},
         "truncated": where(*plan.truncated),
         "resent": where(*plan.resent),
         "fade_rate": {cell: law.fade_rate for cell, law in laws.items()},

@@ -333,6 +333,23 @@ class Ledger:
             raise QueryRefused(f"the fits read failed: {first_line(err)}",
                                hint="check the --where condition" if where else None) from err
 
+    def fleet(
+        self,
+        name: str | None = None,
+        where: str | None = None,
+        *,
+        units: bool = False,
+        sort: str | None = None,
+        desc: bool = False,
+        limit: int | None = None,
+    ) -> pd.DataFrame:
+        """Each fleet of ``name``'s units taken together (``fit_<name>_fleet``: pooled and
+        random-effects slopes, spread, poolability), or with ``units=True`` each unit against
+        the others of its fleet (``fit_<name>_fleet_units``)."""
+        fit = self.spec.fit(name)
+        target = fit.view + ("_fleet_units" if units else "_fleet")
+        return fits_mod.read(self.con, target, where=where, sort=sort, desc=desc, limit=limit)
+
     def watch(self, name: str | None = None) -> pd.DataFrame:
         """Today's alerts of fit ``name`` (all fits when None), newest unit first (watch.alerts)."""
         from trendledger.views.watch import alerts

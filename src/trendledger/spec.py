@@ -62,6 +62,10 @@ class Fit:
     window_x: float | None = None
     min_r2: float = 0.9
     alpha: float = 0.01
+    #: the group columns whose values make a fleet of units (empty: the whole fit is one fleet)
+    fleet: tuple[str, ...] = ()
+    #: significance of the poolability tests (ICH Q1E uses 0.25)
+    pool_alpha: float = 0.25
 
     @property
     def view(self) -> str:
@@ -410,7 +414,7 @@ def _guess_format(files: str) -> str:
 
 FIT_KEYS = {
     "name", "group", "x", "y", "level", "through_origin", "limit", "horizon", "window",
-    "window_x", "min_r2", "alpha",
+    "window_x", "min_r2", "alpha", "fleet", "pool_alpha",
 }
 
 
@@ -484,6 +488,10 @@ def _parse_fit(raw: Any, index: int, source: Source, path: str | None) -> Fit:
     origin = raw.get("through_origin", False)
     if not isinstance(origin, bool):
         raise SpecError(f"{where}: through_origin must be true or false", file=path)
+    fleet = _fleet(raw.get("fleet", []), group, known, where, path)
+    pool_alpha = _number(raw, "pool_alpha", where, path)
+    if pool_alpha is not None and not 0 < pool_alpha < 1:
+        raise SpecError(f"{where}: pool_alpha must be between 0 and 1, e.g. 0.25", file=path)
     return Fit(
         name=name, group=group, x=x, y=y,
         level=level if level is not None else 0.95,
@@ -494,7 +502,39 @@ def _parse_fit(raw: Any, index: int, source: Source, path: str | None) -> Fit:
         window_x=window_x,
         min_r2=min_r2 if min_r2 is not None else 0.9,
         alpha=alpha if alpha is not None else 0.01,
+        fleet=fleet,
+        pool_alpha=pool_alpha if pool_alpha is not None else 0.25,
     )
+
+
+def _fleet(raw: Any, group: tuple[str, ...], known: dict[str, str], where: str,
+           path: str | None) -> tuple[str, ...]:
+    """The fleet fields: a strict subset of the group columns (the units are the groups).
+
+    The fleet views read only the stored per-unit sums, which carry the group columns and
+    nothing else, so a field that is constant within each unit (a lot, a rack) belongs in
+    ``group`` as well: it does not split any unit and makes the fleet key available.
+    """
+    if isinstance(raw, str):
+        raw = [raw]
+    if not isinstance(raw, list) or not all(isinstance(f, str) for f in raw):
+        raise SpecError(f"{where}: fleet must list group columns, e.g. fleet = [\"lot\"]",
+                        file=path)
+    for name in raw:
+        if name not in known:
+            raise SpecError(f"{where}: fleet = {name!r} is not a declared column or field",
+                            file=path, hint=did_you_mean(name, list(group)))
+        if name not in group:
+            raise SpecError(
+                f"{where}: fleet = {name!r} is not a group column; a fleet is a set of units, "
+                f"so add {name!r} to group (a field that is constant within each unit does "
+                "not split any unit)", file=path)
+    if len(set(raw)) != len(raw):
+        raise SpecError(f"{where}: fleet lists a column twice", file=path)
+    if len(raw) >= len(group):
+        raise SpecError(f"{where}: fleet must leave at least one group column to tell the "
+                        "units of a fleet apart", file=path)
+    return tuple(raw)
 
 
 def parse(text: str, path: str | None = None) -> Spec:

@@ -62,6 +62,9 @@ MARKER = ".trendledger-report"
 #: Panels per image: more groups make several images rather than one giant one.
 PANELS_PER_IMAGE = 12
 DEFAULT_PAIR = ("slope", "r2")
+#: Under the fleet section: pooling units is a decision for qualified review.
+POOL_CAUTION = ("Pooling units for a shelf life is a regulated decision: the fleet view "
+                "supports it, qualified review makes it.")
 
 
 class ReportError(TrendledgerError):
@@ -122,7 +125,8 @@ class Views:
         return self.fit.view if kind == "fit" else f"{self.fit.view}_{kind}"
 
 
-KINDS = ("fit", "moments", "windows", "points", "change", "crossing", "alerts")
+KINDS = ("fit", "moments", "windows", "points", "change", "crossing", "alerts", "fleet",
+         "fleet_units")
 
 
 def find_views(con: duckdb.DuckDBPyConnection, fit: Fit) -> Views:
@@ -142,6 +146,8 @@ REASONS: dict[str, str] = {
     "outliers": "some readings lie far from the line (flagged by the outlier test)",
     "slope_changed": "the latest window's slope differs from the trend of all earlier data",
     "crossing_soon": "projected to reach the limit within the horizon, or already past it",
+    "unlike_fleet": "its slope is unlike the slopes of the other units of its fleet (z test "
+                    "against their random-effects mean, Bonferroni over the fleet)",
 }
 #: Reasons whose detail is a projection: the alert table then carries the caution.
 PROJECTIONS = frozenset({"crossing_soon"})
@@ -152,6 +158,7 @@ REASON_GUESSES: tuple[tuple[str, str], ...] = (
     (r"outlier", REASONS["outliers"]),
     (r"limit|cross|horizon", REASONS["crossing_soon"]),
     (r"few", REASONS["too_few_points"]),
+    (r"fleet|sibling", REASONS["unlike_fleet"]),
 )
 
 
@@ -615,6 +622,11 @@ def build(
     # A group the alerts name but the fit view lacks is listed in the table, not drawn.
     alerting = sorted((g for g in reasons if g in set(labels)), key=natural_key)
     detail = alerting + [g for g in sorted(asked, key=natural_key) if g not in reasons]
+    fleet_units = (_read(con, views.name("fleet_units"), fit.group)
+                   if views.has("fleet_units") else None)
+    unlike = ([] if fleet_units is None
+              else list(fleet_units.loc[fleet_units["unlike"].fillna(False).astype(bool),
+                                        LABEL]))
 
     target = Path(out)
     sections: list[Section] = []
@@ -629,7 +641,8 @@ def build(
     over = Section("overview", "Overview",
                    f"Every group of fit <b>{_esc(fit.name)}</b> as one point: "
                    f"<b>{_esc(y_col)}</b> against <b>{_esc(x_col)}</b>. Alerting groups are "
-                   "orange diamonds with their names; groups asked for are blue squares.")
+                   "orange diamonds with their names; groups asked for are blue squares; "
+                   "units whose slope is unlike their fleet's are ringed.")
     plotted = fits[fits[x_col].notna() & fits[y_col].notna()]
     if len(plotted) < len(fits):
         over.notes.append(f"{len(fits) - len(plotted)} group(s) have no {x_col} or {y_col} "
@@ -640,7 +653,8 @@ def build(
             ref = (fit.min_r2, f"min_r2 {fit.min_r2:g}")
         drawn = plots.overview(
             plotted[x_col].astype(float), plotted[y_col].astype(float), list(plotted[LABEL]),
-            alerting=alerting, chosen=asked, x_title=x_col, y_title=y_col, x_line=ref,
+            alerting=alerting, chosen=asked, unlike=unlike, x_title=x_col, y_title=y_col,
+            x_line=ref,
             title=f"{fit.name}: {fit.y} against {fit.x}, per {', '.join(fit.group)}")
         unplaced = drawn.unplaced
         over.images.append(("overview.png", keep("overview.png", drawn),
@@ -728,7 +742,10 @@ def build(
                                 + ", ".join(h.name for h in chunk) + "."))
     sections.append(hist)
 
-    # 4. tables
+    # 4. fleets
+    sections.append(_fleet_section(con, views, fleet_units, plots, keep))
+
+    # 5. tables
     sections.append(_alert_section(fit, alerts, alert_note))
     sections.append(_fits_section(fit, fits, reasons, (y_col, x_col)))
     batches, odd = _lineage(con, since_day)
@@ -742,6 +759,72 @@ def build(
     write_owned(target, {**images, index.name: html.encode("utf-8")}, led.path,
                         force=force, marker=MARKER, what="the report")
     return index
+
+
+#: At most this many fleets are drawn (the table lists every fleet).
+FLEETS_DRAWN = 6
+#: Columns of the fleet view shown in the report, in order.
+FLEET_COLUMNS = ("units", "slope_fixed", "slope_mean", "slope_tau", "slope_q_p", "slope_i2",
+                 "same_slope_p", "same_intercept_p", "pool", "pooled_slope", "pooled_cross_x",
+                 "pooled_cross_bound", "note")
+
+
+def _fleet_section(con: duckdb.DuckDBPyConnection, views: Views,
+                   units: pd.DataFrame | None, plots: Any,
+                   keep: Any) -> Section:
+    """Each fleet: its units' slopes against the fleet band, and the fleet view's table."""
+    fit = views.fit
+    sec = Section("fleets", "Fleets",
+                  "Each unit's slope with its interval against the other units of its fleet "
+                  "(units sharing the fit's fleet columns; every unit when it names none): the "
+                  "dashed line is the fleet's random-effects mean slope, the shaded band the "
+                  "mean \u00b1 1.96 tau, where the slopes of 95 % of units like these would "
+                  "lie. Orange squares are units unlike their fleet (z test against the others' "
+                  f"mean, Bonferroni over the fleet at alpha {fit.alpha:g}). The table gives "
+                  "the poolability tests of ICH Q1E and, where they allow it, the pooled line.")
+    if units is None or not views.has("fleet"):
+        sec.notes.append(f"The store has no fleet views ({views.name('fleet')}); run "
+                         "`trendledger spec update` with this version to install them.")
+        return sec
+    sec.lead.append(f'<div class="caution"><strong>Caution</strong>{_esc(POOL_CAUTION)}</div>')
+    keys = list(fit.fleet)
+    fleets = (_read(con, views.name("fleet"), keys) if keys
+              else con.execute(f"SELECT *, 'all units' AS {_ident(LABEL)} "
+                               f"FROM {_ident(views.name('fleet'))}").df())
+    fleets = fleets.sort_values(LABEL, key=lambda c: c.map(natural_key)).reset_index(drop=True)
+    fleet_label = (units[keys].astype(str).agg(" / ".join, axis=1) if keys
+                   else pd.Series("all units", index=units.index))
+    fit_rows = _read(con, fit.view, fit.group).set_index(LABEL)
+    items = []
+    for _, row in fleets.head(FLEETS_DRAWN).iterrows():
+        mine = units[fleet_label == row[LABEL]]
+        frame = pd.DataFrame({
+            "name": mine[LABEL].to_numpy(),
+            "slope": mine["slope"].to_numpy(float),
+            "slope_lo": fit_rows.loc[mine[LABEL], "slope_lo"].to_numpy(float),
+            "slope_hi": fit_rows.loc[mine[LABEL], "slope_hi"].to_numpy(float),
+            "unlike": mine["unlike"].to_numpy(),
+        })
+        items.append(plots.Fleet(str(row[LABEL]), frame, _num(row["slope_mean"]),
+                                 _num(row["slope_tau"])))
+    if items:
+        drawn = plots.fleet(items, y_title=f"slope of {fit.y}")
+        sec.images.append(("fleets.png", keep("fleets.png", drawn),
+                           "Unit slopes against their fleet for "
+                           + ", ".join(f.name for f in items) + "."))
+    if len(fleets) > FLEETS_DRAWN:
+        sec.notes.append(f"{len(fleets)} fleets; the first {FLEETS_DRAWN} are drawn.")
+    flagged = units[units["unlike"].fillna(False).astype(bool)]
+    if not flagged.empty:
+        cols = [*fit.group, *(c for c in ("slope", "fleet_slope", "fleet_tau", "slope_z",
+                                           "slope_z_p", "slope_shrunk") if c in flagged)]
+        sec.parts.append("<h3>Units unlike their fleet</h3>"
+                         '<div class="scroll">' + table(flagged, cols, table_id="unlike")
+                         + "</div>")
+    cols = [*keys, *(c for c in FLEET_COLUMNS if c in fleets.columns)]
+    sec.parts.append("<h3>Fleets</h3>"
+                     '<div class="scroll">' + table(fleets, cols, table_id="fleets") + "</div>")
+    return sec
 
 
 def _panel_data(fit: Fit, fits: pd.DataFrame, points: pd.DataFrame,

@@ -224,6 +224,7 @@ def overview(
     *,
     alerting: Sequence[str] = (),
     chosen: Sequence[str] = (),
+    unlike: Sequence[str] = (),
     label: Sequence[str] | None = None,
     x_title: str = "r2",
     y_title: str = "slope",
@@ -233,7 +234,8 @@ def overview(
     """Every group as one point at (x, y); alerting groups marked and labelled.
 
     ``label`` lists the names to label (default: alerting, then chosen groups);
-    ``x_line`` draws a dotted vertical reference line with a caption (e.g. min_r2).
+    ``x_line`` draws a dotted vertical reference line with a caption (e.g. min_r2);
+    ``unlike`` names the units whose slope is unlike their fleet's: each gets a ring.
     """
     xs = np.asarray(x, dtype=float)
     ys = np.asarray(y, dtype=float)
@@ -263,6 +265,11 @@ def overview(
         counts[kind] = int(mask.sum())
         if mask.any():
             ax.scatter(xs[mask], ys[mask], gid=f"groups-{kind}", **style)  # type: ignore[arg-type]
+    ring = np.array([n in set(unlike) for n in names], dtype=bool)
+    counts["unlike"] = int(ring.sum())
+    if ring.any():
+        ax.scatter(xs[ring], ys[ring], marker="o", s=150, facecolor="none", edgecolor=RUST,
+                   linewidth=1.4, zorder=5, gid="groups-unlike")
     if len(xs):
         ax.set_xlim(*_padded(xs))
         ax.set_ylim(*_padded(ys, 0.1))
@@ -280,7 +287,11 @@ def overview(
         handles.insert(1, Line2D([], [], linestyle="none", marker="s", markersize=6,
                                  markerfacecolor=NAVY, markeredgecolor=INK,
                                  label=f"asked for ({counts['chosen']})"))
-    fig.legend(handles=handles, loc="upper right", bbox_to_anchor=(0.97, 0.985), ncol=3,
+    if counts["unlike"]:
+        handles.insert(1, Line2D([], [], linestyle="none", marker="o", markersize=10,
+                                 markerfacecolor="none", markeredgecolor=RUST,
+                                 label=f"unlike its fleet ({counts['unlike']})"))
+    fig.legend(handles=handles, loc="upper right", bbox_to_anchor=(0.97, 0.985), ncol=4,
                frameon=False, fontsize=FONT)
     if label is None:
         label = [n for n in names if n in alert_set] + [n for n in names if n in chosen_set]
@@ -296,7 +307,7 @@ def overview(
     labels, missed = place_labels(ax, renderer, targets, obstacles, marker_pt=radius["alert"])
     return Drawn(fig, labels, missed,
                  {"points": len(xs), "alerting": counts["alert"], "chosen": counts["chosen"],
-                  "marker_boxes": obstacles})
+                  "unlike": counts["unlike"], "marker_boxes": obstacles})
 
 
 # -- one panel per group: data, line, band, limit, crossing ---------------------------------
@@ -644,4 +655,82 @@ def history(items: Sequence[History], *, x_title: str, y_title: str, columns: in
                bbox_to_anchor=(0.5, 1.0))
     fig.subplots_adjust(left=0.09, right=0.98, top=1.0 - 0.45 / fig.get_figheight() - 0.02,
                         bottom=0.55 / fig.get_figheight() + 0.03, hspace=0.7, wspace=0.38)
+    return Drawn(fig, info=info)
+
+
+# -- one panel per fleet: each unit's slope against the fleet's spread -----------------------
+
+
+@dataclass
+class Fleet:
+    """One fleet: its units' slopes with their intervals, and the fleet's random-effects mean
+    slope and between-unit standard deviation (None when not defined)."""
+
+    name: str
+    units: pd.DataFrame  # columns: name, slope, slope_lo, slope_hi, unlike
+    mean: float | None
+    tau: float | None
+
+
+def fleet(items: Sequence[Fleet], *, y_title: str, columns: int = 2) -> Drawn:
+    """Per fleet: every unit's slope with its interval, sorted by slope, against the fleet band
+    (the random-effects mean, dashed, and mean +/- 1.96 tau, shaded: where the slopes of 95 %
+    of units like these would lie). Units unlike their fleet are orange squares, named."""
+    count = max(len(items), 1)
+    cols = min(columns, count)
+    rows = math.ceil(count / cols)
+    fig, _ = new_figure(max(5.2 * cols + 0.4, 8.4), 3.0 * rows + 0.7)
+    axes = fig.subplots(rows, cols, squeeze=False)
+    info: dict[str, Any] = {"panels": {}}
+    for i, ax in enumerate(axes.flat):
+        if i >= len(items):
+            ax.set_visible(False)
+            continue
+        f = items[i]
+        _style(ax)
+        ax.set_title(f.name, fontsize=FONT + 0.5, color=INK, loc="left")
+        frame = f.units.dropna(subset=["slope"]).sort_values("slope").reset_index(drop=True)
+        flagged = frame["unlike"].fillna(False).astype(bool).to_numpy()
+        info["panels"][f.name] = {"units": int(len(frame)), "unlike": int(flagged.sum())}
+        if frame.empty:
+            ax.text(0.5, 0.5, "no unit with a slope", transform=ax.transAxes, ha="center",
+                    va="center", color=GREY)
+            continue
+        if f.mean is not None:
+            if f.tau is not None and f.tau > 0:
+                ax.axhspan(f.mean - 1.96 * f.tau, f.mean + 1.96 * f.tau, color=MIST, alpha=0.8,
+                           linewidth=0, zorder=0, gid="fleet-band")
+            ax.axhline(f.mean, color=GREY, linestyle="--", linewidth=1.0, zorder=1,
+                       gid="fleet-mean")
+        pos = np.arange(len(frame), dtype=float)
+        slope = frame["slope"].to_numpy(float)
+        lo = np.where(np.isfinite(frame["slope_lo"].to_numpy(float)),
+                      frame["slope_lo"].to_numpy(float), slope)
+        hi = np.where(np.isfinite(frame["slope_hi"].to_numpy(float)),
+                      frame["slope_hi"].to_numpy(float), slope)
+        for mask, colour, marker, gid in ((~flagged, NAVY, "o", "units"),
+                                          (flagged, RUST, "s", "units-unlike")):
+            if mask.any():
+                ax.errorbar(pos[mask], slope[mask],
+                            yerr=[slope[mask] - lo[mask], hi[mask] - slope[mask]], fmt=marker,
+                            color=colour, markersize=4.0, markeredgecolor=INK,
+                            markeredgewidth=0.5, elinewidth=1.0, capsize=1.5, zorder=3, gid=gid)
+        for j in np.flatnonzero(flagged):
+            ax.annotate(str(frame["name"].iloc[j]), (pos[j], slope[j]), xytext=(6, 0),
+                        textcoords="offset points", fontsize=FONT, color=INK, va="center")
+        ax.set_xticks([])
+        ax.set_xlabel(f"units, by slope ({len(frame)})", fontsize=FONT, color=INK)
+        ax.set_ylabel(y_title, fontsize=FONT, color=INK)
+    handles = [
+        Line2D([], [], linestyle="none", marker="o", color=NAVY, markeredgecolor=INK,
+               markersize=5, label="unit slope, interval"),
+        Line2D([], [], linestyle="none", marker="s", markerfacecolor=RUST, markeredgecolor=INK,
+               markersize=5, label="unlike its fleet"),
+        Line2D([], [], color=GREY, linestyle="--", label="fleet mean slope"),
+        Patch(facecolor=MIST, label="mean \u00b1 1.96 tau"),
+    ]
+    fig.legend(handles=handles, loc="upper center", ncol=4, frameon=False, fontsize=FONT,
+               bbox_to_anchor=(0.5, 1.0))
+    fig.subplots_adjust(left=0.1, right=0.97, top=1.0 - 0.45 / fig.get_figheight() - 0.02,
+                        bottom=0.4 / fig.get_figheight() + 0.03, hspace=0.6, wspace=0.3)
     return Drawn(fig, info=info)

@@ -27,6 +27,8 @@ KINDS: tuple[tuple[str, str, tuple[str, ...]], ...] = (
     ("change", "_change", ("change",)),
     ("break", "_break", ("break",)),
     ("crossing", "_crossing", ("crossing",)),
+    ("fleet", "_fleet", ("fleet",)),  # each fleet of units taken together
+    ("fleet_units", "_fleet_units", ("fleet_units",)),  # each unit against its fleet
     ("alerts", "_alerts", ("alerts",)),
     # moments.py: the same fit recomputed from every row in two passes (reference, benchmarks)
     ("full_moments", "_full_moments", ("moments_full",)),
@@ -65,6 +67,9 @@ def fit_values(spec: Spec, fit: Fit) -> dict[str, Any]:
                   if fit.limit is not None else None),
         "min_r2": fit.min_r2,
         "alpha": fit.alpha,
+        # the fleet columns (possibly none: every unit is one fleet) and the poolability level
+        "fleet": list(fit.fleet),
+        "pool_alpha": fit.pool_alpha,
         # the same numbers as text for notes, formatted here so every engine prints them alike
         "alpha_text": Text(f"{fit.alpha:g}"),
         "level_text": Text(f"{fit.level:g}"),

@@ -28,12 +28,17 @@ from trendledger.views.read import view_columns
 CAUTION = ("statistical projection, not a safety or release decision; follow your local "
            "standards and qualified review")
 
+#: Printed under every output that shows the fleet view's poolability decision or pooled line.
+POOL_CAUTION = ("pooling units for a shelf life is a regulated decision: the fleet view supports "
+                "it, qualified review makes it")
+
 #: Alert reasons from least to most severe; ``--fail-on R`` fails on R and every later one.
 #: The alerts views carry the same order as ``severity`` (1 = too_few_points).
 SEVERITY: tuple[str, ...] = (
     "too_few_points",
     "low_r2",
     "outliers",
+    "unlike_fleet",
     "slope_changed",
     "crossing_soon",
 )
