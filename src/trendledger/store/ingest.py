@@ -913,8 +913,8 @@ def append(
         if isinstance(matched, str):
             c.problem = InputError(matched, file=rel)
             continue
-        if (why := outside(path, root, spec.source.allow)) is not None:
-            c.problem = InputError(why, file=rel)
+        if (refusal := outside(path, root, spec.source.allow)) is not None:
+            c.problem = InputError(refusal, file=rel)
             continue
         try:
             stat = path.stat()
