@@ -18,6 +18,7 @@ def test_valid_spec_parses_with_defaults() -> None:
     assert (fit.x, fit.y, fit.group, fit.level, fit.min_r2, fit.alpha) == (
         "cycle", "capacity_ah", ("cell",), 0.95, 0.9, 0.01)
     assert spec.fit(None) is fit
+    assert (fit.bend, fit.bend_min) == ("joined", 0.15)
     assert len(spec.digest) == 64
 
 
@@ -43,6 +44,9 @@ def test_valid_spec_parses_with_defaults() -> None:
         (('name = "fade"', 'name = "fade"\nwindow = "fortnight"'), "window must be one of"),
         (('[source]', '[source]\nfiles2 = 1'), "unknown key 'files2'"),
         (('cycle = "INTEGER"', 'cycle = 5'), "must be a string"),
+        (('name = "fade"', 'name = "fade"\nbend = "jointed"'), "did you mean 'joined'"),
+        (('name = "fade"', 'name = "fade"\nbend_min = 0.5'), "bend_min is the least share"),
+        (('name = "fade"', 'name = "fade"\nbend_min = "a lot"'), "bend_min must be a number"),
     ],
 )
 def test_mistakes_are_named(change: tuple[str, str], words: str) -> None:

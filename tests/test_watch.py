@@ -298,6 +298,7 @@ def test_failing_follows_the_severity_order() -> None:
     assert not failing(frame, "slope_changed") and not failing(frame, "crossing_soon")
     assert not failing(frame.iloc[:0])
     assert SEVERITY == ("too_few_points", "low_r2", "outliers", "unlike_fleet", "slope_changed",
+                        "bent",
                         "crossing_soon")
 
 

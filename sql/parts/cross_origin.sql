@@ -5,7 +5,8 @@
 -- interval exactly when r < 1). Here the working columns hold:
 --   u0              x0 = limit / slope (NULL for slope 0)
 --   g_level         r at the level, and g_bound r at the bound
---   away            the line meets the limit before the group's first x or at a negative x
+--   away            the line meets the limit before the line's first x (from_x) or at a
+--                   negative x
 --   x_cross         x0
 --   w_level, w_bound  not needed (NULL): the ends are quotients
 --   x_lo, x_hi      x0 / (1 + r) and x0 / (1 - r) (x0 >= 0 once away is false)
@@ -14,7 +15,7 @@ SELECT
     CASE WHEN g.slope <> 0 THEN CAST(__limit__ AS DOUBLE) / g.slope END AS u0,
     CASE WHEN g.slope <> 0 THEN q.t_level * g.slope_se / abs(g.slope) END AS g_level,
     CASE WHEN g.slope <> 0 THEN q.t_bound * g.slope_se / abs(g.slope) END AS g_bound,
-    u0 < x_min OR u0 < 0 AS away,
+    u0 < from_x OR u0 < 0 AS away,
     CASE WHEN no_line IS NULL THEN u0 END AS x_cross,
     CAST(NULL AS DOUBLE) AS w_level,
     CAST(NULL AS DOUBLE) AS w_bound,

@@ -1,6 +1,6 @@
 -- What needs a look today: one row per group and reason (too_few_points, low_r2, outliers,
--- unlike_fleet, slope_changed, crossing_soon), with a short detail and the group's latest x and
--- date.
+-- unlike_fleet, slope_changed, bent, crossing_soon), with a short detail and the group's latest x
+-- and date.
 
 -- Columns:
 --   fit_name        the fit's name (so the alerts of several fits can be stacked)
@@ -8,7 +8,7 @@
 --   group columns   as in the fit view
 --   reason          one of the words below
 --   severity        1 too_few_points, 2 low_r2, 3 outliers, 4 unlike_fleet, 5 slope_changed,
---                   6 crossing_soon (the order `trendledger watch --fail-on` uses)
+--                   6 bent, 7 crossing_soon (the order `trendledger watch --fail-on` uses)
 --   detail          the numbers behind the reason, in words, e.g. 'r2 0.773 < 0.9'
 --   latest_x        the group's largest x (x_max of the fit view)
 --   latest_date     the group's latest value of the spec's first date or timestamp field, NULL
@@ -21,17 +21,21 @@
 --   slope_changed   only when the fit has a change view (a window or window_x): the change
 --                   view's difference_p is below alpha, the latest window's slope differs from
 --                   the slope of all earlier data
---   crossing_soon   only when the fit has a limit and a horizon: the fitted line reaches the
---                   limit (cross_x, as in the crossing view, with the same conditions: a line
---                   that meets the limit at or after the group's first x, whose slope is
---                   significant at alpha or which fits exactly) at most horizon x-units after
---                   latest_x, or has already reached it
+--   bent            the bend view found a significant bend (bends > 0): the line since then is
+--                   the one that holds now, e.g. 'the line bent at x = 229: slope -0.00012
+--                   before, -0.0011 after, p 1e-40'
+--   crossing_soon   only when the fit has a limit and a horizon: the line that holds now (the
+--                   bend view's: since the last significant bend, else the whole history)
+--                   reaches the limit (cross_x, as in the crossing view, with the same
+--                   conditions: a line that meets the limit at or after its first x, whose
+--                   slope is significant at alpha or which fits exactly) at most horizon
+--                   x-units after latest_x, or has already reached it
 --   unlike_fleet    the fleet_units view flags the unit: its slope differs from the
 --                   random-effects mean of the other units of its fleet (z test, p below alpha
 --                   divided by the fleet's units), and it follows a line (r2 >= min_r2)
 -- A group has no row when nothing is wrong. Group columns must not be named like a column of
 -- this view or a working column (n, r2, slope, slope_p, status, x_min, x_mean, y_mean,
--- outliers, flagged_x, cross_x).
+-- outliers, flagged_x, cross_x, from_x, centre_x, centre_y).
 CREATE OR REPLACE VIEW __view__ AS
 WITH groups AS MATERIALIZED (
     SELECT
@@ -61,16 +65,21 @@ flagged AS MATERIALIZED (
     FROM __points_view__
     GROUP BY __group__
 ),
+now AS MATERIALIZED (
+    -- the line that holds now (sql/views/bend.sql)
+    SELECT * FROM __bend_view__
+),
 crossing AS (
     SELECT
-        __group__,
-        x_min,
-        latest_x,
-        x_mean + (CAST(__limit_or_null__ AS DOUBLE) - y_mean) / slope AS cross_x
-    FROM groups
-    WHERE status IN ('ok', 'perfect_fit')
-        AND slope <> 0
-        AND (status = 'perfect_fit' OR slope_p < __alpha__)
+        n.__group__,
+        n.from_x AS x_min,
+        g.latest_x,
+        n.centre_x + (CAST(__limit_or_null__ AS DOUBLE) - n.centre_y) / n.slope AS cross_x
+    FROM now AS n
+    JOIN groups AS g ON ROW(g.__group__) IS NOT DISTINCT FROM ROW(n.__group__)
+    WHERE n.status IN ('ok', 'perfect_fit')
+        AND n.slope <> 0
+        AND (n.status = 'perfect_fit' OR n.slope_p < __alpha__)
 ),
 reasons AS (
     SELECT __group__, 'too_few_points' AS reason, 1 AS severity,
@@ -96,7 +105,14 @@ reasons AS (
     FROM __change_view_if_any__
     WHERE difference_p < __alpha__
     UNION ALL
-    SELECT __group__, 'crossing_soon', 6,
+    SELECT __group__, 'bent', 6,
+        format('the line bent at x = {:.4g}: slope {:.3g} before, {:.3g} after, p {}', bend_x,
+            slope_before, slope_after,
+            CASE WHEN bend_p = 0 THEN '< 1e-300' ELSE format('{:.2g}', bend_p) END)
+    FROM now
+    WHERE bends > 0
+    UNION ALL
+    SELECT __group__, 'crossing_soon', 7,
         CASE
             WHEN cross_x <= latest_x
                 THEN format('line reached the limit {:g} at x = {:.4g}, before the latest x {:g}',

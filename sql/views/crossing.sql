@@ -1,14 +1,17 @@
--- Where each group's fitted line (with an intercept, or through the origin) reaches the fit's
--- limit: the crossing x with a Fieller confidence interval by inverse regression, and the
--- conservative one-sided 95% bound.
+-- Where each group's line reaches the fit's limit, from the line that holds now (since the last
+-- significant bend, else the whole history; through the origin, the whole history): the
+-- crossing x with a Fieller confidence interval by inverse regression, and the conservative
+-- one-sided 95% bound.
 
--- The line's degrees of freedom come from the slot __line__ (sql/parts/line_intercept.sql or
--- line_origin.sql), the crossing and its ends from the slot __cross__ (cross_intercept.sql, or
--- cross_origin.sql for y = slope x: cross_x = limit / slope, n - 1 degrees of freedom, 'slope
--- points away' also for a crossing at a negative x). Below, the line with an intercept.
+-- The line comes from the fragment __line_now__: sql/fragments/line_since_bend.sql (the bend
+-- view, for a fit with an intercept) or line_whole.sql (the fit view: a fit through the origin,
+-- or an engine without the bend view). The crossing and its ends come from the slot __cross__
+-- (cross_intercept.sql, or cross_origin.sql for y = slope x: cross_x = limit / slope, n - 1
+-- degrees of freedom, 'slope points away' also for a crossing at a negative x). Below, the line
+-- with an intercept.
 -- One row per group of the fit view. Columns:
 --   group columns   as in the fit view
---   cross_x         x where the fitted line reaches the limit: x_mean + (limit - y_mean) / slope
+--   cross_x         x where the line reaches the limit: centre_x + (limit - centre_y) / slope
 --   cross_lo, cross_hi
 --                   confidence interval for that x at the fit's level (Fieller's method, below):
 --                   every x whose confidence band of the mean line contains the limit
@@ -20,56 +23,47 @@
 --   note            NULL when all four are given; otherwise why not (the x columns that cannot
 --                   be given are NULL): 'no line: <fit status>' (too_few_points, constant_x,
 --                   out_of_range), 'flat line never reaches the limit', 'slope points away from
---                   the limit' (the line meets the limit before the group's first x: it was
+--                   the limit' (the line meets the limit before the line's first x: it was
 --                   beyond the limit where the data begin and moves away from it; all NULL),
 --                   'slope not significant at alpha ...' (the fit's slope_p
 --                   against its alpha; all NULL), 'interval unbounded at level ...'
 --                   (cross_lo, cross_hi NULL), 'bound unbounded' (cross_bound NULL).
+--   basis           'since_bend' when the line is the current segment's (a significant bend),
+--                   'whole' when it is the whole history's
+--   from_x          the first x of that line: the bend, or the group's first x
 --
--- Fieller's method. With u = x - x_mean, the line is y_mean + slope u, its standard error at u is
--- s sqrt(1 / n + u^2 / sxx) (s = resid_sd), and the limit lies inside the band of critical value
--- t where (slope u - c)^2 <= t^2 s^2 (1 / n + u^2 / sxx), c = limit - y_mean. The ends are the
+-- Fieller's method. With u = x - centre_x the line is centre_y + slope u, its standard error at
+-- u is sqrt(centre_se^2 + slope_se^2 u^2) (for the whole history centre_x = x_mean,
+-- centre_y = y_mean, centre_se = s / sqrt(n), slope_se = s / sqrt(sxx), s = resid_sd), and the
+-- limit lies inside the band of critical value t where
+-- (slope u - c)^2 <= t^2 (centre_se^2 + slope_se^2 u^2), c = limit - centre_y. The ends are the
 -- roots of that quadratic. With u0 = c / slope and g = (t slope_se / slope)^2,
---     u = (u0 -/+ (t s / |slope|) sqrt(u0^2 / sxx + (1 - g) / n)) / (1 - g),
+--     u = (u0 -/+ (t / |slope|) sqrt(slope_se^2 u0^2 + centre_se^2 (1 - g))) / (1 - g),
 -- a finite interval exactly when g < 1, that is when the slope differs from 0 at that level.
--- cross_lo and cross_hi use t = tl_t_crit((1 - level) / 2, n - 2), cross_bound the smaller root
--- with t = tl_t_crit(0.05, n - 2). A perfect fit (s = 0) gives cross_lo = cross_hi =
--- cross_bound = cross_x. The numbers come from the moments and fit views of the same fit.
+-- cross_lo and cross_hi use t = tl_t_crit((1 - level) / 2, df), cross_bound the smaller root
+-- with t = tl_t_crit(0.05, df), df the line's residual degrees of freedom (n - 2 for the whole
+-- history). A perfect fit (no residual) gives cross_lo = cross_hi = cross_bound = cross_x.
 CREATE OR REPLACE VIEW __view__ AS
 WITH groups AS MATERIALIZED (
-    SELECT
-        m.__group__,
-        m.n,
-        m.x_mean,
-        m.y_mean,
-        m.sxx,
-        f.x_min,
-        f.slope,
-        f.resid_sd AS s,
-        f.slope_se,
-        f.slope_p,
-        f.status
-    FROM __moments_view__ AS m
-    JOIN __fit_view__ AS f ON ROW(m.__group__) IS NOT DISTINCT FROM ROW(f.__group__)
+    SELECT * FROM __line_now__ AS line_now
 ),
 quantiles AS MATERIALIZED (
     SELECT
-        n,
-        tl_t_crit((1 - __level__) / 2, __line__.df) AS t_level,
-        tl_t_crit(0.05, __line__.df) AS t_bound
-    FROM (SELECT DISTINCT n FROM groups WHERE __line__.has_df) AS sizes
+        df,
+        tl_t_crit((1 - __level__) / 2, df) AS t_level,
+        tl_t_crit(0.05, df) AS t_bound
+    FROM (SELECT DISTINCT df FROM groups WHERE df >= 1) AS sizes
 ),
 setup AS (
     SELECT
         g.*,
         q.t_level,
         q.t_bound,
-        CAST(__limit__ AS DOUBLE) - g.y_mean AS c,
         __cross__.u0 AS u0,
         __cross__.g_level AS g_level,
         __cross__.g_bound AS g_bound
     FROM groups AS g
-    LEFT JOIN quantiles AS q USING (n)
+    LEFT JOIN quantiles AS q USING (df)
 ),
 judged AS (
     SELECT
@@ -116,5 +110,7 @@ SELECT
             END,
             CASE WHEN NOT coalesce(isfinite(x_bound), false) THEN 'bound unbounded' END
         ), '')
-    END AS note
+    END AS note,
+    basis,
+    from_x
 FROM ends

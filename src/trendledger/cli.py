@@ -9,7 +9,7 @@ from typing import Annotated
 
 import typer
 
-from trendledger.errors import TrendledgerError, printable
+from trendledger.errors import StoreError, TrendledgerError, printable
 from trendledger.ledger import DEFAULT_WAIT, Ledger, default_store
 from trendledger.query import limits, output
 from trendledger.query.params import collect_params
@@ -301,6 +301,7 @@ def fits(
     view: Annotated[str | None, typer.Option("--view", help="A companion view, e.g. windows, points, change, crossing, alerts")] = None,
     break_at: Annotated[float | None, typer.Option("--break-at", help="Chow test for a break in each group's line at this x")] = None,
     fleet: Annotated[bool, typer.Option("--fleet", help="One row per fleet: pooled and random-effects slopes, spread, poolability (--view fleet_units: each unit against its fleet)")] = False,
+    now: Annotated[bool, typer.Option("--now", help="The line that holds now: since each group's last significant bend (the bend view)")] = False,
     fmt: FormatOpt = "table",
     timeout: TimeoutOpt = limits.DEFAULT_TIMEOUT,
     store: StoreOpt = None,
@@ -314,7 +315,12 @@ def fits(
                                  param_hint="--fleet")
     try:
         with _open(store, read_only=True, wait=wait) as led:
-            if fleet:
+            if now:
+                if view or break_at is not None or fleet:
+                    raise StoreError("--now shows the bend view; leave out --view, --break-at "
+                                     "and --fleet")
+                df = led.bend(name, where, sort=sort, desc=desc, limit=limit)
+            elif fleet:
                 df = led.fleet(name, where, sort=sort, desc=desc, limit=limit)
             else:
                 df = led.fits(name, where, sort=sort, desc=desc, limit=limit, view=view,
@@ -324,7 +330,7 @@ def fits(
         return
     _print(df, fmt)
     # projections and pooling: the caution goes under a table, to stderr beside machine formats
-    if view == "crossing":
+    if now or view in ("crossing", "bend"):
         typer.echo(CAUTION, err=fmt not in ("table", "markdown"))
     if fleet or view == "fleet":
         typer.echo(POOL_CAUTION, err=fmt not in ("table", "markdown"))
@@ -333,7 +339,7 @@ def fits(
 @app.command()
 def watch(
     name: Annotated[str | None, typer.Argument(help="Fit name (default: every fit)")] = None,
-    fail_on: Annotated[str | None, typer.Option("--fail-on", help="Exit 1 on an alert at or above this reason: too_few_points < low_r2 < outliers < unlike_fleet < slope_changed < crossing_soon (default: any alert)")] = None,
+    fail_on: Annotated[str | None, typer.Option("--fail-on", help="Exit 1 on an alert at or above this reason: too_few_points < low_r2 < outliers < unlike_fleet < slope_changed < bent < crossing_soon (default: any alert)")] = None,
     fmt: FormatOpt = "table",
     store: StoreOpt = None,
     wait: WaitOpt = DEFAULT_WAIT,

@@ -350,6 +350,24 @@ class Ledger:
         target = fit.view + ("_fleet_units" if units else "_fleet")
         return fits_mod.read(self.con, target, where=where, sort=sort, desc=desc, limit=limit)
 
+    def bend(
+        self,
+        name: str | None = None,
+        where: str | None = None,
+        *,
+        sort: str | None = None,
+        desc: bool = False,
+        limit: int | None = None,
+    ) -> pd.DataFrame:
+        """Per group, where the line of fit ``name`` bends and the line since the last
+        significant bend (the ``fit_<name>_bend`` view; see sql/views/bend.sql)."""
+        fit = self.spec.fit(name)
+        if fit.through_origin:
+            raise StoreError(f"fit {fit.name!r} has no bend view: it is fitted through the "
+                             "origin", hint="the bend search needs lines with an intercept")
+        return fits_mod.read(self.con, fit.view + "_bend", where=where, sort=sort, desc=desc,
+                             limit=limit)
+
     def watch(self, name: str | None = None) -> pd.DataFrame:
         """Today's alerts of fit ``name`` (all fits when None), newest unit first (watch.alerts)."""
         from trendledger.views.watch import alerts

@@ -21,6 +21,9 @@ from trendledger.views import names
 
 FORMATS = ("csv", "tsv", "parquet", "jsonl")
 WINDOWS = ("day", "week", "month")
+#: How a group's line may bend (sql/views/bend.sql): two lines that meet, two lines with a
+#: jump between them, or no bend search at all.
+BENDS = ("joined", "free", "none")
 
 # DuckDB types a column or template field may declare. Parametrised DECIMAL is
 # matched separately. Kept to plain scalar types: they load from every format.
@@ -66,6 +69,8 @@ class Fit:
     fleet: tuple[str, ...] = ()
     #: significance of the poolability tests (ICH Q1E uses 0.25)
     pool_alpha: float = 0.25
+    bend: str = "joined"
+    bend_min: float = 0.15
 
     @property
     def view(self) -> str:
@@ -415,6 +420,7 @@ def _guess_format(files: str) -> str:
 FIT_KEYS = {
     "name", "group", "x", "y", "level", "through_origin", "limit", "horizon", "window",
     "window_x", "min_r2", "alpha", "fleet", "pool_alpha",
+    "bend", "bend_min",
 }
 
 
@@ -492,6 +498,14 @@ def _parse_fit(raw: Any, index: int, source: Source, path: str | None) -> Fit:
     pool_alpha = _number(raw, "pool_alpha", where, path)
     if pool_alpha is not None and not 0 < pool_alpha < 1:
         raise SpecError(f"{where}: pool_alpha must be between 0 and 1, e.g. 0.25", file=path)
+    bend = raw.get("bend", "joined")
+    if bend not in BENDS:
+        raise SpecError(f"{where}: bend must be one of {', '.join(BENDS)}", file=path,
+                        hint=did_you_mean(str(bend), BENDS))
+    bend_min = _number(raw, "bend_min", where, path)
+    if bend_min is not None and not 0 < bend_min < 0.5:
+        raise SpecError(f"{where}: bend_min is the least share of a group's points on each "
+                        "side of a bend, above 0 and below 0.5, e.g. 0.15", file=path)
     return Fit(
         name=name, group=group, x=x, y=y,
         level=level if level is not None else 0.95,
@@ -504,6 +518,8 @@ def _parse_fit(raw: Any, index: int, source: Source, path: str | None) -> Fit:
         alpha=alpha if alpha is not None else 0.01,
         fleet=fleet,
         pool_alpha=pool_alpha if pool_alpha is not None else 0.25,
+        bend=bend,
+        bend_min=bend_min if bend_min is not None else 0.15,
     )
 
 

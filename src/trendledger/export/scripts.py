@@ -17,6 +17,7 @@ from dataclasses import dataclass, field
 from pathlib import Path, PurePosixPath
 from typing import Any
 
+import sqlglot
 from sqlglot import exp
 
 from trendledger.export import dialects, lowering
@@ -191,6 +192,16 @@ class _Translation:
 _TRANSLATIONS: dict[str, _Translation] = {}
 
 
+def _reads(statements: tuple[str, ...]) -> set[str]:
+    """Names of the tables and views the statements read."""
+    names: set[str] = set()
+    for text in statements:
+        for stmt in sqlglot.parse(text, read="duckdb"):
+            if stmt is not None:
+                names.update(t.name for t in stmt.find_all(exp.Table))
+    return names
+
+
 def _translate(lay: Layout, dialect: str) -> _Translation:
     """Functions and views for ``dialect`` (the slow part, shared by every location)."""
     key = digest(lay, dialect, "")
@@ -204,6 +215,10 @@ def _translate(lay: Layout, dialect: str) -> _Translation:
     unavailable: dict[str, str] = {}
     lines: list[str] = []
     for item, done in zip(items, translated, strict=True):
+        reads = _reads(item.statements) & set(unavailable)
+        if reads and not done.unsupported:
+            done = dialects.Translated(done.name, (), f"it reads {', '.join(sorted(reads))}, "
+                                       "which is not available")
         if done.unsupported:
             unavailable[item.name] = done.unsupported
             lines.append(_comment(f"{item.name}: not available in {dialect}: {done.unsupported}"))
@@ -242,8 +257,10 @@ def script(lay: Layout, dialect: str, location: str) -> Script:
         header.append("PostgreSQL does not read Parquet: once the tables below exist, load "
                       "them from a shell (psql connects as the PG* variables say):")
         header.extend("  " + c for c in commands)
+    # the bend search nests three rounds of one query: more analyzer passes than the default 100
+    settings = ["SET spark.sql.analyzer.maxIterations=1000;", ""] if dialect == "spark" else []
     text = "\n".join(
-        ["\n".join(_comment(line) for line in header), "",
+        ["\n".join(_comment(line) for line in header), "", *settings,
          "-- sources", *(s + ";" for s in _sources(lay, dialect, location)), ""]
         + (["-- functions", *(s + ";" for s in done.functions), ""] if done.functions else [])
         + ["-- views", *done.views, ""]

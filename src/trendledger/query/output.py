@@ -20,12 +20,23 @@ FORMATS = ("table", "csv", "json", "markdown")
 WIDEST = 60
 
 
-def _cell(value: Any, digits: int) -> str:
+#: How a p-value too small for float64 (stored as 0) reads in a table.
+TINY_P = "< 1e-300"
+
+
+def is_p_value(column: str) -> bool:
+    """Columns holding p-values: ``p`` and names ending in ``_p`` (slope_p, bend_p ...)."""
+    return column == "p" or column.endswith("_p")
+
+
+def _cell(value: Any, digits: int, p_value: bool = False) -> str:
     if value is None or value is pd.NA or value is pd.NaT:
         return ""
     if isinstance(value, float):
         if math.isnan(value):
             return ""
+        if p_value and value == 0:
+            return TINY_P  # below float64's range, not an exact zero
         return f"{value:.{digits}g}"
     return str(value)
 
@@ -62,8 +73,10 @@ def render(df: pd.DataFrame, fmt: str = "table", digits: int = 6, *,
         return "\n".join(printable(line) for line in text.split("\n")) if escape else text
     if fmt == "json":
         return json.dumps(rows(df), indent=1, default=str) + "\n"
-    cells = [[_cell(v, digits) for v in rec] for rec in df.itertuples(index=False, name=None)]
     header = [str(c) for c in df.columns]
+    tiny = [is_p_value(h) for h in header]
+    cells = [[_cell(v, digits, t) for v, t in zip(rec, tiny, strict=True)]
+             for rec in df.itertuples(index=False, name=None)]
     if escape:
         cells = [[printable(c) for c in row] for row in cells]
         header = [printable(h) for h in header]

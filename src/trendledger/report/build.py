@@ -34,6 +34,7 @@ from sqlglot import exp
 
 from trendledger.errors import TrendledgerError
 from trendledger.outputs import check_not_store, write_owned
+from trendledger.query.output import TINY_P, is_p_value
 from trendledger.spec import Fit, Spec, did_you_mean
 from trendledger.version import __version__
 from trendledger.views.read import view_columns
@@ -125,7 +126,7 @@ class Views:
         return self.fit.view if kind == "fit" else f"{self.fit.view}_{kind}"
 
 
-KINDS = ("fit", "moments", "windows", "points", "change", "crossing", "alerts", "fleet",
+KINDS = ("fit", "moments", "windows", "points", "change", "bend", "crossing", "alerts", "fleet",
          "fleet_units")
 
 
@@ -145,6 +146,7 @@ REASONS: dict[str, str] = {
               "min_r2)",
     "outliers": "some readings lie far from the line (flagged by the outlier test)",
     "slope_changed": "the latest window's slope differs from the trend of all earlier data",
+    "bent": "the line bent: the trend since the bend is the one that holds now",
     "crossing_soon": "projected to reach the limit within the horizon, or already past it",
     "unlike_fleet": "its slope is unlike the slopes of the other units of its fleet (z test "
                     "against their random-effects mean, Bonferroni over the fleet)",
@@ -154,6 +156,7 @@ PROJECTIONS = frozenset({"crossing_soon"})
 #: For a reason this version does not know: (pattern in the code, plain words).
 REASON_GUESSES: tuple[tuple[str, str], ...] = (
     (r"r2|linear", REASONS["low_r2"]),
+    (r"bend|bent|knee", REASONS["bent"]),
     (r"change|shift|break", REASONS["slope_changed"]),
     (r"outlier", REASONS["outliers"]),
     (r"limit|cross|horizon", REASONS["crossing_soon"]),
@@ -347,8 +350,8 @@ def _is_missing(value: Any) -> bool:
     return isinstance(value, float) and math.isnan(value)
 
 
-def cell(value: Any, digits: int = 6) -> tuple[str, str]:
-    """(text shown, sort value) of one table cell."""
+def cell(value: Any, digits: int = 6, p_value: bool = False) -> tuple[str, str]:
+    """(text shown, sort value) of one table cell; a p-value of 0 underflowed float64."""
     if _is_missing(value):
         return "", ""
     if isinstance(value, bool | np.bool_):
@@ -359,6 +362,8 @@ def cell(value: Any, digits: int = 6) -> tuple[str, str]:
         f = float(value)
         if not math.isfinite(f):
             return str(f), ""
+        if p_value and f == 0:
+            return TINY_P, repr(f)
         return f"{f:.{digits}g}", repr(f)
     if isinstance(value, pd.Timestamp | datetime):
         # A DATE column arrives as a midnight timestamp: show it as the date it is.
@@ -403,7 +408,7 @@ def table(
                 attr = f' class="{_esc(extra)}"' if extra else ""
                 out.append(f"<td{attr}>{value}</td>")
                 continue
-            text, key = cell(value)
+            text, key = cell(value, p_value=is_p_value(col))
             numeric = key != "" and _num(key) is not None
             names = " ".join(n for n in ("num" if numeric else "", extra) if n)
             cls = f' class="{names}"' if names else ""
@@ -683,8 +688,10 @@ def build(
             panels_sec.notes.append(point_note)
         moments = (_read(con, views.name("moments"), fit.group, detail)
                    if views.has("moments") else None)
+        bends = (_read(con, views.name("bend"), fit.group, detail)
+                 if views.has("bend") else None)
         items = [_panel_data(fit, fits, points, moments, crossing, g,
-                             _subtitle(reasons, g)) for g in detail]
+                             _subtitle(reasons, g), bends) for g in detail]
         for i, chunk in enumerate(_chunks(items, PANELS_PER_IMAGE)):
             file = "groups.png" if len(items) <= PANELS_PER_IMAGE else f"groups-{i + 1}.png"
             drawn = plots.panels(chunk, x_title=fit.x, y_title=fit.y, level=fit.level)
@@ -699,8 +706,15 @@ def build(
                     f"The store has no crossing view ({views.name('crossing')}): the limit "
                     f"({fit.limit:g}) is drawn, no crossing is projected.")
             else:
+                crossing = crossing.copy()
+                # beside the projection from the line that holds now, the whole history's
+                by_label = fits.set_index(LABEL)
+                crossing["whole_cross_x"] = [
+                    _whole_cross(fit, by_label.loc[g]) if g in by_label.index else None
+                    for g in crossing[LABEL]]
                 cols = [*fit.group, *(c for c in ("cross_x", "cross_lo", "cross_hi",
-                                                   "cross_bound", "note") if c in crossing)]
+                                                   "cross_bound", "basis", "from_x",
+                                                   "whole_cross_x", "note") if c in crossing)]
                 panels_sec.parts.append(
                     f"<h3>Projected crossing of the limit {fit.limit:g}</h3>"
                     '<div class="scroll">' + table(crossing, cols, table_id="crossing")
@@ -827,9 +841,36 @@ def _fleet_section(con: duckdb.DuckDBPyConnection, views: Views,
     return sec
 
 
+def _whole_cross(fit: Fit, row: pd.Series) -> float | None:
+    """Where the whole-history line reaches the limit (a point estimate, for comparison)."""
+    slope, intercept = _num(row.get("slope")), _num(row.get("intercept"))
+    if fit.limit is None or not slope or intercept is None:
+        return None
+    return (fit.limit - intercept) / slope
+
+
+def _bend_data(fit: Fit, bends: pd.DataFrame | None, name: str) -> Any:
+    from trendledger.report.plots import Bend
+
+    if bends is None:
+        return None
+    rows = bends[bends[LABEL] == name]
+    if not len(rows) or not (_num(rows["bends"].iloc[0]) or 0) > 0:
+        return None
+    r = rows.iloc[0]
+    values = [_num(r.get(c)) for c in ("bend_x", "slope", "intercept", "centre_x", "centre_se",
+                                        "slope_se")]
+    if any(v is None for v in values):
+        return None
+    se, hi, slope = _num(r.get("slope_se")), _num(r.get("slope_hi")), _num(r.get("slope"))
+    t = (hi - slope) / se if se and hi is not None and slope is not None else None
+    x, slope_now, intercept, centre_x, centre_se, slope_se = (float(v) for v in values)  # type: ignore[arg-type]
+    return Bend(x, slope_now, intercept, centre_x, centre_se, slope_se, t)
+
+
 def _panel_data(fit: Fit, fits: pd.DataFrame, points: pd.DataFrame,
                 moments: pd.DataFrame | None, crossing: pd.DataFrame | None, name: str,
-                subtitle: str) -> Any:
+                subtitle: str, bends: pd.DataFrame | None = None) -> Any:
     from trendledger.report.plots import Crossing, Panel
 
     row = fits[fits[LABEL] == name].iloc[0]
@@ -860,7 +901,8 @@ def _panel_data(fit: Fit, fits: pd.DataFrame, points: pd.DataFrame,
         intercept=_num(row.get("intercept")), resid_sd=_num(row.get("resid_sd")),
         n=int(row["n"]) if not _is_missing(row.get("n")) else len(x), x_mean=x_mean, sxx=sxx,
         t=t, through_origin=fit.through_origin, limit=fit.limit, crossing=cross,
-        subtitle=subtitle)
+        subtitle=subtitle, bend=_bend_data(fit, bends, name),
+        whole_cross=_whole_cross(fit, row))
 
 
 def _alert_section(fit: Fit, alerts: pd.DataFrame, note: str | None) -> Section:

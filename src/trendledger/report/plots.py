@@ -324,6 +324,31 @@ class Crossing:
     note: str | None = None
 
 
+@dataclass(frozen=True)
+class Bend:
+    """The line since a group's last significant bend (the bend view), and its band.
+
+    The standard error of the line at x is sqrt(centre_se^2 + slope_se^2 (x - centre_x)^2);
+    ``t`` is its two-sided t quantile at the fit's level.
+    """
+
+    x: float
+    slope: float
+    intercept: float
+    centre_x: float
+    centre_se: float
+    slope_se: float
+    t: float | None
+
+    def band(self, grid: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        fitted = self.intercept + self.slope * grid
+        if self.t is None:
+            return fitted, fitted, fitted
+        half = self.t * np.sqrt(self.centre_se ** 2 + self.slope_se ** 2
+                                * (grid - self.centre_x) ** 2)
+        return fitted, fitted - half, fitted + half
+
+
 @dataclass
 class Panel:
     """Everything one group's panel shows; ``t`` is the fit's two-sided t quantile."""
@@ -343,6 +368,9 @@ class Panel:
     limit: float | None = None
     crossing: Crossing | None = None
     subtitle: str = ""
+    bend: Bend | None = None
+    #: where the whole-history line reaches the limit, quoted beside the current projection
+    whole_cross: float | None = None
 
 
 def mean_band(p: Panel, grid: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
@@ -398,8 +426,9 @@ def _extent(p: Panel) -> tuple[float, float, float, bool]:
 def _panel(ax: Axes, p: Panel, x_title: str, y_title: str, level: float) -> dict[str, Any]:
     _style(ax)
     drawn: dict[str, Any] = {"points": 0, "outliers": 0, "lines": []}
-    ax.set_title(p.name + (f"  {p.subtitle}" if p.subtitle else ""), fontsize=FONT + 0.5,
-                 color=INK, loc="left")
+    bent = f"  · bent at {_fmt(p.bend.x)}" if p.bend is not None else ""
+    ax.set_title(p.name + (f"  {p.subtitle}" if p.subtitle else "") + bent,
+                 fontsize=FONT + 0.5, color=INK, loc="left")
     if len(p.x) == 0:
         ax.text(0.5, 0.5, "no data", transform=ax.transAxes, ha="center", va="center",
                 color=GREY)
@@ -414,7 +443,27 @@ def _panel(ax: Axes, p: Panel, x_title: str, y_title: str, level: float) -> dict
                         gid="band")
         ax.plot(grid, fitted, color=INK, linewidth=1.3, zorder=4, gid="fit-line")
         drawn["lines"].append("fit-line")
-        if right > hi:
+        if p.bend is not None:
+            # the line since the bend, and its projection: what holds now
+            now_line = p.bend
+            ax.axvline(now_line.x, color=GREY, linestyle=(0, (1, 1.5)), linewidth=1.1, zorder=3,
+                       gid="bend")
+            drawn["lines"].append("bend")
+            now = np.linspace(max(now_line.x, lo), hi, 60)
+            line, b_lo, b_hi = now_line.band(now)
+            ax.fill_between(now, b_lo, b_hi, color=SAND, alpha=0.6, linewidth=0, zorder=1,
+                            gid="bend-band")
+            ax.plot(now, line, color=RUST, linewidth=1.5, zorder=4, gid="bend-line")
+            drawn["lines"].append("bend-line")
+            if right > hi:
+                ahead = np.linspace(hi, right, 60)
+                ahead_band = now_line.band(ahead)
+                ax.fill_between(ahead, ahead_band[1], ahead_band[2], color=SAND, alpha=0.3,
+                                linewidth=0, zorder=1, gid="band-projected")
+                ax.plot(ahead, ahead_band[0], color=RUST, linewidth=1.2,
+                        linestyle=(0, (5, 2.5)), zorder=4, gid="projection")
+                drawn["lines"].append("projection")
+        elif right > hi:
             ahead = np.linspace(hi, right, 60)
             ahead_band = mean_band(p, ahead)
             if ahead_band is not None:
@@ -437,9 +486,10 @@ def _panel(ax: Axes, p: Panel, x_title: str, y_title: str, level: float) -> dict
         near = near[(near > y_lo - 3 * span_y) & (near < y_hi + 3 * span_y)]
         if near.size:
             y_lo, y_hi = min(y_lo, float(near.min())), max(y_hi, float(near.max()))
-    for b in (band, ahead_band):
-        if b is not None:
-            y_lo, y_hi = min(y_lo, float(np.min(b[1]))), max(y_hi, float(np.max(b[2])))
+    for edges in (band, ahead_band):
+        if edges is not None:
+            y_lo = min(y_lo, float(np.min(edges[1])))
+            y_hi = max(y_hi, float(np.max(edges[2])))
     if p.limit is not None and crossing_shown:
         y_lo, y_hi = min(y_lo, p.limit), max(y_hi, p.limit)
     pad = 0.06 * (y_hi - y_lo or abs(y_hi) or 1.0)
@@ -491,6 +541,8 @@ def _panel(ax: Axes, p: Panel, x_title: str, y_title: str, level: float) -> dict
             drawn["lines"].append("crossing-note")
     elif c is not None and c.note:
         notes.append(f"no crossing: {c.note}")
+    if p.bend is not None and p.whole_cross is not None:
+        notes.append(f"whole history: near {_fmt(p.whole_cross)}")
     if notes:
         # Falling data leave the upper right free, rising data the lower right.
         up = p.slope is None or p.slope <= 0
@@ -530,6 +582,11 @@ def panels(
         handles.append(Line2D([], [], linestyle="none", marker="v", markersize=6.5,
                               markerfacecolor=RUST, markeredgecolor=INK,
                               label="outlier beyond the frame"))
+    if any("bend-line" in d["lines"] for d in info["panels"].values()):
+        handles += [
+            Line2D([], [], color=RUST, linewidth=1.5, label="line since the bend"),
+            Line2D([], [], color=GREY, linestyle=(0, (1, 1.5)), label="bend"),
+        ]
     if any(p.limit is not None for p in items):
         handles.append(Line2D([], [], color=RUST, linestyle=(0, (6, 2, 1.5, 2)), label="limit"))
     if any({"projection", "crossing"} & set(d["lines"]) for d in info["panels"].values()):

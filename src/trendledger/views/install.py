@@ -37,7 +37,8 @@ TABLE_MACROS = frozenset({"break"})
 #: Kinds whose statistics assume a line with an intercept: a fit through the origin gets them
 #: only from an ``_origin`` twin of the template, never from the plain one. A kind missing here
 #: takes the fit's line from the slots ``__line__`` and ``__cross__`` (sql/parts/).
-INTERCEPT_ONLY = frozenset({"windows", "change", "break", "alerts", "fleet", "fleet_units"})
+INTERCEPT_ONLY = frozenset({"windows", "bend_rounds", "bend", "change", "break", "alerts", "fleet",
+                            "fleet_units"})
 
 
 @dataclass(frozen=True)

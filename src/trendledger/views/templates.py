@@ -43,7 +43,19 @@ class Part(str):
     part's expression ``expr`` (see :func:`part_expressions`)."""
 
 
-Value = str | float | int | Sequence[str] | Sequence[exp.Expression] | None
+@dataclass(frozen=True)
+class Fragment:
+    """A query under ``sql/`` included where a template reads the placeholder as a table.
+
+    ``FROM __name__ AS prev`` becomes ``FROM (<the fragment's query>) AS prev``, the
+    fragment rendered with the template's values and ``__previous__`` naming ``prev``: one
+    piece of SQL applied to several inputs (the rounds of the bend search).
+    """
+
+    relative: str
+
+
+Value = str | float | int | Sequence[str] | Sequence[exp.Expression] | Fragment | None
 
 
 def sql_dir() -> Path:
@@ -230,7 +242,9 @@ def _fill(tree: exp.Expression, values: Mapping[str, Value]) -> exp.Expression:
             continue  # its branch was left out; seen here only if it stood elsewhere
         if isinstance(value, Part):
             raise TemplateError(f"part slot __{key}__ used other than as __{key}__.name")
-        if value is None:
+        if isinstance(value, Fragment):
+            _include(ident, key, value, values)
+        elif value is None:
             # an optional value the fit leaves unset (written __name_or_null__, see views.plan)
             holder.replace(exp.Null())
         elif isinstance(value, Text):
@@ -244,6 +258,20 @@ def _fill(tree: exp.Expression, values: Mapping[str, Value]) -> exp.Expression:
         else:
             _expand(holder, ident, key, list(value))  # type: ignore[arg-type]
     return tree
+
+
+def _include(ident: exp.Identifier, key: str, fragment: Fragment,
+             values: Mapping[str, Value]) -> None:
+    table = ident.parent
+    if not (isinstance(table, exp.Table) and table.alias):
+        raise TemplateError(f"fragment placeholder __{key}__ must be read as a table with an "
+                            "alias naming its input, e.g. FROM __name__ AS step_0")
+    part = load(fragment.relative)
+    if len(part.statements) != 1 or not isinstance(part.statements[0], exp.Query):
+        raise TemplateError("a fragment holds one query", file=str(part.path))
+    query = _fill(part.statements[0].copy(), {**values, "previous": table.alias})
+    table.replace(exp.Subquery(this=query, alias=exp.TableAlias(
+        this=exp.to_identifier(table.alias))))
 
 
 def _expand(holder: exp.Expression, ident: exp.Identifier, key: str,

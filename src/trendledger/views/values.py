@@ -24,6 +24,8 @@ KINDS: tuple[tuple[str, str, tuple[str, ...]], ...] = (
     ("fit", "", ("fit_stored",)),  # moments.py: fit.sql's rows, stored and kept up to date
     ("windows", "_windows", ("windows",)),
     ("points", "_points", ("points",)),
+    ("bend_rounds", "_bend_rounds", ("bend_rounds",)),
+    ("bend", "_bend", ("bend",)),
     ("change", "_change", ("change",)),
     ("break", "_break", ("break",)),
     ("crossing", "_crossing", ("crossing",)),
@@ -70,6 +72,15 @@ def fit_values(spec: Spec, fit: Fit) -> dict[str, Any]:
         # the fleet columns (possibly none: every unit is one fleet) and the poolability level
         "fleet": list(fit.fleet),
         "pool_alpha": fit.pool_alpha,
+        # bend_rounds.sql: the kind of bend searched for ('none': no search, the bend view
+        # holds the whole-history line that the crossing view projects from)
+        "bend_kind": Text(fit.bend),
+        "bend_min": fit.bend_min,
+        "bend_round": templates.Fragment("fragments/bend_round.sql"),
+        # crossing.sql: the line it projects from (the bend view's line that holds now; the
+        # whole history through the origin, where there is no bend view)
+        "line_now": templates.Fragment("fragments/line_whole.sql" if fit.through_origin
+                                       else "fragments/line_since_bend.sql"),
         # the same numbers as text for notes, formatted here so every engine prints them alike
         "alpha_text": Text(f"{fit.alpha:g}"),
         "level_text": Text(f"{fit.level:g}"),

@@ -25,8 +25,9 @@ from trendledger.spec import Fit, Spec, did_you_mean
 from trendledger.views.read import view_columns
 
 #: Printed under every output that shows a projected crossing of a limit.
-CAUTION = ("statistical projection, not a safety or release decision; follow your local "
-           "standards and qualified review")
+CAUTION = ("statistical projection, an extrapolation of the current segment, which can bend "
+           "again; not a safety or release decision; follow your local standards and qualified "
+           "review")
 
 #: Printed under every output that shows the fleet view's poolability decision or pooled line.
 POOL_CAUTION = ("pooling units for a shelf life is a regulated decision: the fleet view supports "
@@ -40,6 +41,7 @@ SEVERITY: tuple[str, ...] = (
     "outliers",
     "unlike_fleet",
     "slope_changed",
+    "bent",
     "crossing_soon",
 )
 
