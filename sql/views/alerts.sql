@@ -21,7 +21,8 @@
 --   slope_changed   only when the fit has a change view (a window or window_x): the change
 --                   view's difference_p is below alpha, the latest window's slope differs from
 --                   the slope of all earlier data
---   bent            the bend view found a significant bend (bends > 0): the line since then is
+--   bent            only when the fit has a bend view (a fit with an intercept): it found a
+--                   significant bend (bends > 0), the line since then is
 --                   the one that holds now, e.g. 'the line bent at x = 229: slope -0.00012
 --                   before, -0.0011 after, p 1e-40'
 --   crossing_soon   only when the fit has a limit and a horizon: the line that holds now (the
@@ -66,8 +67,9 @@ flagged AS MATERIALIZED (
     GROUP BY __group__
 ),
 now AS MATERIALIZED (
-    -- the line that holds now (sql/views/bend.sql)
-    SELECT * FROM __bend_view__
+    -- the line that holds now (sql/fragments/line_since_bend.sql: the bend view's; or
+    -- line_whole.sql where there is no bend view)
+    SELECT * FROM __line_now__ AS line_now
 ),
 crossing AS (
     SELECT
@@ -109,7 +111,7 @@ reasons AS (
         format('the line bent at x = {:.4g}: slope {:.3g} before, {:.3g} after, p {}', bend_x,
             slope_before, slope_after,
             CASE WHEN bend_p = 0 THEN '< 1e-300' ELSE format('{:.2g}', bend_p) END)
-    FROM now
+    FROM __bend_view_if_any__
     WHERE bends > 0
     UNION ALL
     SELECT __group__, 'crossing_soon', 7,

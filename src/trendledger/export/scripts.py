@@ -24,6 +24,7 @@ from trendledger.export import dialects, lowering
 from trendledger.export.layout import DATA, Column, ExportError, Layout, connection, layout
 from trendledger.trace import Writer
 from trendledger.version import __version__
+from trendledger.views import install as views
 from trendledger.views.watch import CAUTION
 
 #: Layout version of an export folder; a different one is rewritten whole.
@@ -137,6 +138,9 @@ _NOTES = {
         "set spark.sql.autoBroadcastJoinThreshold=-1).",
         "Differences from DuckDB: a division by zero gives NULL (DuckDB: an infinity or NaN), "
         "compensated sums (fsum) are plain sums.",
+        "No bend views: the crossing and alerts views project from the whole-history line "
+        "(basis 'whole', no 'bent' alerts), where DuckDB and PostgreSQL project from the line "
+        "since the last significant bend.",
     ],
     "postgres": [
         "PostgreSQL (tested with 15): tables to load the Parquet files into (see below), the "
@@ -191,6 +195,27 @@ class _Translation:
 
 _TRANSLATIONS: dict[str, _Translation] = {}
 
+#: View kinds an engine cannot run, and why. The views that read them are planned without
+#: them (views.plan(without=...)): the crossing and alerts views read the whole-history line.
+_LEFT_OUT: dict[str, tuple[frozenset[str], str]] = {
+    "spark": (frozenset({"bend_rounds", "bend"}),
+              "the bend search nests three rounds of one query, and planning it exhausts the "
+              "Spark driver's memory (Java OutOfMemoryError with 3 GB), so the crossing and "
+              "alerts views here project from the whole-history line"),
+}
+
+
+def _planned(lay: Layout, dialect: str) -> tuple[list[views.Planned], dict[str, str]]:
+    """The views to translate for ``dialect``, and the ones left out with the reason."""
+    if dialect not in _LEFT_OUT:
+        return [p for p in lay.planned if p.kind != "macro"], {}
+    kinds, why = _LEFT_OUT[dialect]
+    names = {p.name for p in lay.planned}
+    left_out = {p.name: why for p in lay.planned if p.kind in kinds}
+    items = [p for p in views.plan(lay.spec, recompute=True, without=kinds)
+             if p.kind != "macro" and p.name in names]
+    return items, left_out
+
 
 def _reads(statements: tuple[str, ...]) -> set[str]:
     """Names of the tables and views the statements read."""
@@ -208,12 +233,13 @@ def _translate(lay: Layout, dialect: str) -> _Translation:
     if key in _TRANSLATIONS:
         return _TRANSLATIONS[key]
     macros = [s for p in lay.planned if p.kind == "macro" for s in p.statements]
-    items = [p for p in lay.planned if p.kind != "macro"]
+    items, left_out = _planned(lay, dialect)
     functions = dialects.double_macros(macros) if dialect in ("spark", "postgres") else set()
     porter = dialects.Porter(dialect, macros, functions=functions)
     translated = [porter.view(p.name, p.statements) for p in items]
-    unavailable: dict[str, str] = {}
-    lines: list[str] = []
+    unavailable: dict[str, str] = dict(left_out)
+    lines: list[str] = [_comment(f"{name}: not available in {dialect}: {why}")
+                        for name, why in left_out.items()]
     for item, done in zip(items, translated, strict=True):
         reads = _reads(item.statements) & set(unavailable)
         if reads and not done.unsupported:
@@ -257,10 +283,8 @@ def script(lay: Layout, dialect: str, location: str) -> Script:
         header.append("PostgreSQL does not read Parquet: once the tables below exist, load "
                       "them from a shell (psql connects as the PG* variables say):")
         header.extend("  " + c for c in commands)
-    # the bend search nests three rounds of one query: more analyzer passes than the default 100
-    settings = ["SET spark.sql.analyzer.maxIterations=1000;", ""] if dialect == "spark" else []
     text = "\n".join(
-        ["\n".join(_comment(line) for line in header), "", *settings,
+        ["\n".join(_comment(line) for line in header), "",
          "-- sources", *(s + ";" for s in _sources(lay, dialect, location)), ""]
         + (["-- functions", *(s + ";" for s in done.functions), ""] if done.functions else [])
         + ["-- views", *done.views, ""]

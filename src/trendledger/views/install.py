@@ -75,11 +75,14 @@ def _alias(fit: Fit, name: str, same_as: str) -> Planned:
     return Planned(name, "full", fit.name, f"the same rows as {same_as}", tuple(stmts))
 
 
-def plan(spec: Spec, *, recompute: bool = False) -> list[Planned]:
+def plan(spec: Spec, *, recompute: bool = False,
+         without: frozenset[str] = frozenset()) -> list[Planned]:
     """Every macro and view the spec asks for, rendered but not yet run.
 
     ``recompute`` plans the views for an engine that has the rows but not the store's
     stored sums (see :data:`RECOMPUTED_FIT`); the view names and columns stay the same.
+    ``without`` names view kinds an engine cannot run: they are left out, and the views that
+    would read them read what stands in (without a bend view, the whole-history line).
     """
     out: list[Planned] = []
     for macro in templates.load_dir("macros"):
@@ -93,6 +96,8 @@ def plan(spec: Spec, *, recompute: bool = False) -> list[Planned]:
                        if not k.endswith("_view") and not isinstance(v, list)})
         installed: set[str] = set()
         for kind, suffix, files in KINDS:
+            if kind in without:
+                continue
             if recompute and kind in ("full_moments", "full"):
                 if kind == "full":  # full_moments was planned before the moments view
                     out.append(_alias(fit, fit.view + suffix, values["fit_view"]))
@@ -102,6 +107,10 @@ def plan(spec: Spec, *, recompute: bool = False) -> list[Planned]:
                        for k, v in values.items()}
             # moments.py: a kind may take a placeholder's value from another one
             offered.update({k: offered[v] for k, v in KIND_VALUES.get(kind, {}).items()})
+            if offered.get("bend_view") is None:
+                # no bend view (a fit through the origin, an engine without one): crossing and
+                # alerts project from the whole-history line
+                offered["line_now"] = templates.Fragment("fragments/line_whole.sql")
             # __name_view_if_any__: a UNION branch reading a sibling the fit lacks is left out
             offered.update({f"{k}_if_any": v for k, v in list(offered.items())
                             if k.endswith("_view")})

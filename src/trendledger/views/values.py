@@ -77,10 +77,9 @@ def fit_values(spec: Spec, fit: Fit) -> dict[str, Any]:
         "bend_kind": Text(fit.bend),
         "bend_min": fit.bend_min,
         "bend_round": templates.Fragment("fragments/bend_round.sql"),
-        # crossing.sql: the line it projects from (the bend view's line that holds now; the
-        # whole history through the origin, where there is no bend view)
-        "line_now": templates.Fragment("fragments/line_whole.sql" if fit.through_origin
-                                       else "fragments/line_since_bend.sql"),
+        # crossing.sql, alerts.sql: the line they project from, the bend view's line that
+        # holds now (views.plan puts the whole-history line where there is no bend view)
+        "line_now": templates.Fragment("fragments/line_since_bend.sql"),
         # the same numbers as text for notes, formatted here so every engine prints them alike
         "alpha_text": Text(f"{fit.alpha:g}"),
         "level_text": Text(f"{fit.level:g}"),
