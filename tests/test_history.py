@@ -78,17 +78,17 @@ def test_replace_keeps_the_old_rows_with_the_reason(lab: Lab) -> None:
         led.append()
     lab.day("2026-03-02", {"c01": [(1, 3.0), (2, 2.93)]})
     code, out, _ = tl("append", "--store", str(lab.store), "--replace",
-                      "--why", "transcription error in cycle 2")
+                      "--why", "typing error in cycle 2")
     assert code == 0 and "1 replaced" in out
     assert "incoming/2026-03-02/c01.csv: replaces file 1 (2 rows -> 2 rows)" in out
     with lab.open(read_only=True) as led:
         old = led.query("SELECT cycle, capacity_ah, file_id, removed_by_file, removed_how, "
                         "removed_why FROM measurements_history ORDER BY cycle")
         assert old.values.tolist() == [
-            [1, 3.0, 1, 2, "replaced", "transcription error in cycle 2"],
-            [2, 2.9, 1, 2, "replaced", "transcription error in cycle 2"]]
+            [1, 3.0, 1, 2, "replaced", "typing error in cycle 2"],
+            [2, 2.9, 1, 2, "replaced", "typing error in cycle 2"]]
         msg = led.lineage(files=True).set_index("file_id").loc[1, "message"]
-        assert msg == "replaced by file 2 in batch 2: transcription error in cycle 2"
+        assert msg == "replaced by file 2 in batch 2: typing error in cycle 2"
         assert led.con.execute("SELECT capacity_ah FROM measurements ORDER BY cycle"
                                ).fetchall() == [(3.0,), (2.93,)]
 
