@@ -405,11 +405,12 @@ def _solve(f, a: float, b: float) -> float:
     raise AssertionError("no sign change")
 
 
-def _check_crossing(row: pd.Series, cell: str, limit: float, level: float) -> None:
+def _check_crossing(row: pd.Series, cell: str, limit: float, level: float,
+                    note: str | None = None) -> None:
     res = _ols(cell)
     slope = float(res.params[0])
     cross = limit / slope  # reference: statsmodels OLS without constant, params
-    assert pd.isna(row["note"])
+    assert row["note"] == note if note else pd.isna(row["note"])
     assert row["cross_x"] == pytest.approx(cross, rel=RTOL)
 
     # both ends: where the level band (get_prediction, alpha = 1 - level) has the limit on its
@@ -433,7 +434,8 @@ def _check_crossing(row: pd.Series, cell: str, limit: float, level: float) -> No
 
 @pytest.mark.parametrize("cell", ["rise", "spike", "past"])
 def test_fieller_interval_toward_a_ceiling(crossing: pd.DataFrame, cell: str) -> None:
-    _check_crossing(crossing.loc[cell], cell, LIMIT, LEVEL)
+    note = "past the limit at the latest x" if cell == "past" else None
+    _check_crossing(crossing.loc[cell], cell, LIMIT, LEVEL, note)
 
 
 def test_fieller_interval_toward_a_floor(store: Path) -> None:
@@ -445,39 +447,59 @@ def test_fieller_interval_at_another_level(store: Path) -> None:
 
 
 def test_crossing_notes(crossing: pd.DataFrame) -> None:
-    # the line meets the ceiling at a negative x (falling) or before the first x (late)
+    # `limit` is the side the slope points to: a ceiling for a rising line, a floor for a
+    # falling one; a line already past it says so and its crossing lies before the latest x
     assert LIMIT / _ols("sink").params[0] < 0
     assert 0 < LIMIT / _ols("late").params[0] < 100
     assert -10 < LIMIT / _ols("both").params[0] < 0
-    assert crossing.loc["sink", "note"] == "slope points away from the limit"
-    assert crossing.loc["late", "note"] == "slope points away from the limit"
-    assert crossing.loc["both", "note"] == "slope points away from the limit"
+    assert crossing.loc["sink", "side"] == crossing.loc["both", "side"] == "lower"
+    assert crossing.loc["late", "side"] == crossing.loc["rise", "side"] == "upper"
+    for cell in ("sink", "late", "both"):
+        assert crossing.loc[cell, "note"] == "past the limit at the latest x"
+        assert bool(crossing.loc[cell, "past"])
+        # reference: statsmodels OLS without constant, params
+        assert crossing.loc[cell, "cross_x"] == pytest.approx(LIMIT / _ols(cell).params[0],
+                                                              rel=RTOL)
     assert crossing.loc["nil", "note"] == "flat line never reaches the limit"
     assert crossing.loc["one", "note"] == "no line: too_few_points"
     assert crossing.loc["zero", "note"] == "no line: x_all_zero"
-    for cell in ("noisy", "mid", "two"):
-        # reference: statsmodels OLS without constant, pvalues (n - 1 degrees of freedom)
-        p = float(_ols(cell).pvalues[0])
-        assert p >= ALPHA
-        assert crossing.loc[cell, "note"] == "slope not significant at alpha 0.01"
-    for cell in ("sink", "late", "both", "nil", "one", "zero", "noisy", "mid", "two"):
+    for cell in ("nil", "one", "zero"):
         assert crossing.loc[cell, ["cross_x", "cross_lo", "cross_hi",
                                    "cross_bound"]].isna().all(), cell
+
+
+@pytest.mark.parametrize("cell", ["noisy", "mid"])
+def test_bound_is_given_for_a_slope_that_is_not_significant(crossing: pd.DataFrame,
+                                                            cell: str) -> None:
+    # ICH Q1E estimates a shelf life from the one-sided 95% bound whether or not the slope is
+    # significant; reference: statsmodels OLS without constant, pvalues (n - 1 df)
+    res = _ols(cell)
+    assert float(res.pvalues[0]) >= ALPHA
+    row = crossing.loc[cell]
+    assert row["note"].startswith("slope not significant at alpha 0.01")
+    cross = LIMIT / float(res.params[0])
+    assert row["cross_x"] == pytest.approx(cross, rel=RTOL)
+    # reference: scipy.optimize.brentq on statsmodels get_prediction(x).conf_int(alpha=0.10),
+    # upper edge (rising toward the ceiling)
+    bound = _solve(lambda x: _band(res, x, 0.10)[1] - LIMIT, cross * 1e-6, cross)
+    assert row["cross_bound"] == pytest.approx(bound, rel=RTOL)
 
 
 def test_rising_group_points_away_from_a_floor(store: Path) -> None:
     # reference: statsmodels OLS without constant, params: the floor is met at a negative x
     assert FLOOR / _ols("rise").params[0] < 0
     row = _crossing(store, "floor").loc["rise"]
-    assert row["note"] == "slope points away from the limit"
-    assert row[["cross_x", "cross_lo", "cross_hi", "cross_bound"]].isna().all()
+    assert row["side"] == "upper"  # `limit` follows the slope: a rising line's is a ceiling
+    assert row["note"] == "past the limit at the latest x"
 
 
 def test_exact_line_crosses_with_zero_width(crossing: pd.DataFrame) -> None:
     row = crossing.loc["exact"]
     # x / 16 = 3 at x = 48
     assert row["cross_x"] == row["cross_lo"] == row["cross_hi"] == row["cross_bound"] == 48.0
-    assert pd.isna(row["note"])
+    # the data cover x 1 to 8: twice that period ends at 8 + 7 = 15, well before 48
+    assert row["extrapolation_end"] == 15.0
+    assert row["note"] == "extrapolated: beyond extrapolation_end (ICH Q1E rule)"
 
 
 def test_unbounded_interval_at_a_high_level(store: Path) -> None:
@@ -489,8 +511,14 @@ def test_unbounded_interval_at_a_high_level(store: Path) -> None:
     assert ALPHA < res.pvalues[0] < WIDE_ALPHA
     row = wide.loc["noisy"]
     assert row["cross_x"] == pytest.approx(LIMIT / res.params[0], rel=RTOL)
-    assert row[["cross_lo", "cross_hi", "cross_bound"]].isna().all()
-    assert row["note"] == "interval unbounded at level 0.99; bound unbounded"
+    assert row[["cross_lo", "cross_hi"]].isna().all()
+    # the one-sided bound still leaves the ceiling (|t| = 1.6 < t(0.95, 39)): the bound widens
+    # faster than the line rises, so it meets the limit before the line does
+    # reference: scipy.optimize.brentq on statsmodels get_prediction(x).conf_int(alpha=0.10)
+    bound = _solve(lambda x: _band(res, x, 0.10)[1] - LIMIT, 1e-6, row["cross_x"])
+    assert row["cross_bound"] == pytest.approx(bound, rel=RTOL)
+    assert row["note"] == ("interval unbounded at level 0.99; extrapolated: beyond "
+                           "extrapolation_end (ICH Q1E rule)")
     # mid: |t| = 2.2 lies between them: the bound is given, the 99% interval is not
     res = _ols("mid")
     assert res.tvalues[0] == pytest.approx(2.2, rel=1e-9)
@@ -502,4 +530,5 @@ def test_unbounded_interval_at_a_high_level(store: Path) -> None:
     # upper edge (rising toward the ceiling)
     bound = _solve(lambda x: _band(res, x, 0.10)[1] - LIMIT, cross * 1e-6, cross)
     assert row["cross_bound"] == pytest.approx(bound, rel=RTOL)
-    assert row["note"] == "interval unbounded at level 0.99"
+    assert row["note"] == ("interval unbounded at level 0.99; extrapolated: beyond "
+                           "extrapolation_end (ICH Q1E rule)")

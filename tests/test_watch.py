@@ -15,6 +15,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
+import statsmodels.api as sm
+from scipy import optimize
 
 from trendledger import Ledger, demo_data
 from trendledger.views.watch import CAUTION, SEVERITY, failing
@@ -225,15 +227,27 @@ def test_each_cell_trips_its_reason(lab_store: Path) -> None:
     with Ledger.open(lab_store, read_only=True) as led:
         got = led.watch("fade")
     pairs = sorted(zip(got["unit_label"], got["reason"], strict=True))
-    assert pairs == [("few", "too_few_points"), ("past", "crossing_soon"),
+    assert pairs == [("few", "too_few_points"), ("past", "out_of_limits"),
                      ("soon", "crossing_soon")]
     detail = dict(zip(got["unit_label"], got["detail"], strict=True))
-    # numpy: where the least-squares line of the cell meets 2.0
     rows = _cells()["soon"]
-    b, a = np.polyfit([r[1] for r in rows], [r[2] for r in rows], 1)
-    assert detail["soon"].startswith(f"line reaches the limit 2 at x = {(2.0 - a) / b:.4g}, ")
-    assert detail["soon"].endswith("after the latest x (horizon 50)")
-    assert detail["past"].startswith("line reached the limit 2 at x = 2")
+    x = np.array([r[1] for r in rows], dtype=float)
+    res = sm.OLS(np.array([r[2] for r in rows]), sm.add_constant(x)).fit()
+
+    def lower_bound(at: float) -> float:
+        # statsmodels get_prediction: the two-sided 90% band's lower edge is the one-sided 95%
+        # lower bound of the mean line
+        return float(res.get_prediction(np.array([[1.0, at]])).conf_int(alpha=0.10)[0, 0])
+
+    # reference: scipy.optimize.brentq on that bound; numpy polyfit for the line's own crossing
+    bound = optimize.brentq(lambda at: lower_bound(at) - 2.0, 56, 200, xtol=1e-10)
+    b, a = np.polyfit(x, [r[2] for r in rows], 1)
+    assert detail["soon"] == (
+        f"the one-sided 95% bound meets the lower limit 2 at x = {bound:.4g}, "
+        f"{bound - 56:.3g} after the latest x (horizon 50); the line meets it at "
+        f"x = {(2.0 - a) / b:.4g}")
+    assert detail["past"].startswith("the line is at 1.75")
+    assert detail["past"].endswith("at the latest x 56, below the lower limit 2")
     assert detail["few"] == "2 pair(s); a line needs 3"
 
 
@@ -254,7 +268,7 @@ def test_views_follow_the_fit_settings(lab_store: Path) -> None:
     assert {"fit_plain_alerts", "fit_plain_points", "fit_plain_crossing"} <= names
     assert not {"fit_plain_windows", "fit_plain_change"} & names
     assert sorted(zip(plain["cell"], plain["reason"], strict=True)) == [
-        ("few", "too_few_points"), ("past", "crossing_soon"), ("soon", "crossing_soon")]
+        ("few", "too_few_points"), ("past", "out_of_limits"), ("soon", "crossing_soon")]
     # no limit: no crossing view and no crossing_soon
     assert "fit_nolimit_crossing" not in names and "fit_nolimit_change" in names
     assert list(nolimit["reason"]) == ["too_few_points"]
@@ -271,7 +285,7 @@ def test_watch_cli_groups_by_unit_and_cautions(lab_store: Path) -> None:
     lines = out.splitlines()
     assert lines[0] == "3 alert(s) on 3 unit(s) (fit fade)"
     assert lines[2] == "past  (latest 2026-03-15, x 56)"
-    assert lines[3].startswith("  crossing_soon   line reached the limit 2 at x = ")
+    assert lines[3].startswith("  out_of_limits   the line is at 1.75")
     assert lines[-1] == CAUTION  # a projection is shown
     code, out, err = tl("watch", "fade", "--format", "csv", "--store", str(lab_store))
     assert CAUTION in err and CAUTION not in out
@@ -298,8 +312,7 @@ def test_failing_follows_the_severity_order() -> None:
     assert not failing(frame, "slope_changed") and not failing(frame, "crossing_soon")
     assert not failing(frame.iloc[:0])
     assert SEVERITY == ("too_few_points", "low_r2", "outliers", "unlike_fleet", "slope_changed",
-                        "bent",
-                        "crossing_soon")
+                        "bent", "crossing_soon", "out_of_limits")
 
 
 def test_duckdb_cli_reads_the_alerts_and_the_break_macro(demo_store: Path,

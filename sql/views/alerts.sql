@@ -1,6 +1,6 @@
 -- What needs a look today: one row per group and reason (too_few_points, low_r2, outliers,
--- unlike_fleet, slope_changed, bent, crossing_soon), with a short detail and the group's latest x
--- and date.
+-- unlike_fleet, slope_changed, bent, crossing_soon, out_of_limits), with a short detail and the
+-- group's latest x and date.
 
 -- Columns:
 --   fit_name        the fit's name (so the alerts of several fits can be stacked)
@@ -8,7 +8,8 @@
 --   group columns   as in the fit view
 --   reason          one of the words below
 --   severity        1 too_few_points, 2 low_r2, 3 outliers, 4 unlike_fleet, 5 slope_changed,
---                   6 bent, 7 crossing_soon (the order `trendledger watch --fail-on` uses)
+--                   6 bent, 7 crossing_soon, 8 out_of_limits (the order `trendledger watch
+--                   --fail-on` uses)
 --   detail          the numbers behind the reason, in words, e.g. 'r2 0.773 < 0.9'
 --   latest_x        the group's largest x (x_max of the fit view)
 --   latest_date     the group's latest value of the spec's first date or timestamp field, NULL
@@ -25,18 +26,22 @@
 --                   significant bend (bends > 0), the line since then is
 --                   the one that holds now, e.g. 'the line bent at x = 229: slope -0.00012
 --                   before, -0.0011 after, p 1e-40'
---   crossing_soon   only when the fit has a limit and a horizon: the line that holds now (the
---                   bend view's: since the last significant bend, else the whole history)
---                   reaches the limit (cross_x, as in the crossing view, with the same
---                   conditions: a line that meets the limit at or after its first x, whose
---                   slope is significant at alpha or which fits exactly) at most horizon
---                   x-units after latest_x, or has already reached it
+--   crossing_soon   only when the fit has a limit and a horizon, per side of the crossing view:
+--                   the conservative one-sided 95% bound of the line that holds now (the bend
+--                   view's: since the last significant bend, else the whole history) meets the
+--                   limit (cross_bound) at most horizon x-units after latest_x, or has already
+--                   met it, while the line itself is not yet past it; whether the slope is
+--                   significant or not (the detail says when it is not, and when the crossing
+--                   lies beyond the ICH Q1E extrapolation rule: 'extrapolated')
+--   out_of_limits   only when the fit has a limit: the line that holds now, at the latest x
+--                   (its fitted value there, not the latest reading alone), is past a limit
+--                   (below a floor, above a ceiling); one row per side
 --   unlike_fleet    the fleet_units view flags the unit: its slope differs from the
 --                   random-effects mean of the other units of its fleet (z test, p below alpha
 --                   divided by the fleet's units), and it follows a line (r2 >= min_r2)
 -- A group has no row when nothing is wrong. Group columns must not be named like a column of
 -- this view or a working column (n, r2, slope, slope_p, status, x_min, x_mean, y_mean,
--- outliers, flagged_x, cross_x, from_x, centre_x, centre_y).
+-- outliers, flagged_x).
 CREATE OR REPLACE VIEW __view__ AS
 WITH groups AS MATERIALIZED (
     SELECT
@@ -65,23 +70,6 @@ flagged AS MATERIALIZED (
         list_sort(list(x) FILTER (WHERE outlier)) AS flagged_x
     FROM __points_view__
     GROUP BY __group__
-),
-now AS MATERIALIZED (
-    -- the line that holds now (sql/fragments/line_since_bend.sql: the bend view's; or
-    -- line_whole.sql where there is no bend view)
-    SELECT * FROM __line_now__ AS line_now
-),
-crossing AS (
-    SELECT
-        n.__group__,
-        n.from_x AS x_min,
-        g.latest_x,
-        n.centre_x + (CAST(__limit_or_null__ AS DOUBLE) - n.centre_y) / n.slope AS cross_x
-    FROM now AS n
-    JOIN groups AS g ON ROW(g.__group__) IS NOT DISTINCT FROM ROW(n.__group__)
-    WHERE n.status IN ('ok', 'perfect_fit')
-        AND n.slope <> 0
-        AND (n.status = 'perfect_fit' OR n.slope_p < __alpha__)
 ),
 reasons AS (
     SELECT __group__, 'too_few_points' AS reason, 1 AS severity,
@@ -114,18 +102,35 @@ reasons AS (
     FROM __bend_view_if_any__
     WHERE bends > 0
     UNION ALL
+    SELECT __group__, 'out_of_limits', 8,
+        format('the line is at {:.4g} at the latest x {:g}, {} the {} limit {:.4g}',
+            line_at_latest, latest_x, CASE WHEN side = 'lower' THEN 'below' ELSE 'above' END,
+            side, limit_value)
+    FROM __crossing_view_if_any__
+    WHERE past
+    UNION ALL
     SELECT __group__, 'crossing_soon', 7,
-        CASE
-            WHEN cross_x <= latest_x
-                THEN format('line reached the limit {:g} at x = {:.4g}, before the latest x {:g}',
-                    CAST(__limit_or_null__ AS DOUBLE), cross_x, latest_x)
-            ELSE format('line reaches the limit {:g} at x = {:.4g}, {:.3g} after the latest x '
-                || '(horizon {:g})', CAST(__limit_or_null__ AS DOUBLE), cross_x,
-                cross_x - latest_x, CAST(__horizon_or_null__ AS DOUBLE))
-        END
-    FROM crossing
-    -- a line that met the limit before the first x moves away from it (crossing view)
-    WHERE cross_x >= x_min AND cross_x <= latest_x + CAST(__horizon_or_null__ AS DOUBLE)
+        format('the one-sided 95% bound {} the {} limit {:.4g} at x = {:.4g}{}{}{}{}',
+            CASE WHEN cross_bound <= latest_x THEN 'met' ELSE 'meets' END, side, limit_value,
+            cross_bound,
+            CASE
+                WHEN cross_bound <= latest_x THEN ', before the latest x'
+                ELSE format(', {:.3g} after the latest x (horizon {:g})',
+                    cross_bound - latest_x, CAST(__horizon_or_null__ AS DOUBLE))
+            END,
+            CASE
+                WHEN cross_x IS NOT NULL THEN format('; the line meets it at x = {:.4g}', cross_x)
+                ELSE ''
+            END,
+            CASE
+                WHEN note LIKE '%slope not significant%'
+                    THEN '; slope not significant at alpha ' || __alpha_text__
+                ELSE ''
+            END,
+            CASE WHEN note LIKE '%extrapolated%' THEN '; extrapolated (ICH Q1E rule)' ELSE '' END)
+    FROM __crossing_view_if_any__
+    -- judged on the conservative bound; a side already past is out_of_limits instead
+    WHERE NOT past AND cross_bound <= latest_x + CAST(__horizon_or_null__ AS DOUBLE)
     UNION ALL
     SELECT __group__, 'unlike_fleet', 4,
         format('slope {:.3g} against {:.3g} for its {} siblings (z {:.3g}, p {:.2g} < {:g} / {})',

@@ -50,6 +50,17 @@ MISSING = ("", "NaN", "nan")
 
 
 @dataclass(frozen=True)
+class Limit:
+    """One side of a tolerance: an absolute value, or a fraction of the unit's start.
+
+    The start is the mean of the unit's readings at its first (smallest) x: the first reading.
+    """
+
+    value: float | None = None
+    fraction: float | None = None
+
+
+@dataclass(frozen=True)
 class Fit:
     """One regression definition: y against x, per group."""
 
@@ -71,6 +82,13 @@ class Fit:
     pool_alpha: float = 0.25
     bend: str = "joined"
     bend_min: float = 0.15
+    #: two-sided tolerance: a floor and a ceiling, each absolute or relative to the unit's start
+    #: (``limit`` is the side the slope points to)
+    lower: Limit | None = None
+    upper: Limit | None = None
+    #: the longest projection beyond the latest x, in x units (ICH Q1E: 12 months); the other
+    #: half of the rule, at most the period the data cover, always applies
+    extrapolation_cap: float | None = None
 
     @property
     def view(self) -> str:
@@ -420,7 +438,7 @@ def _guess_format(files: str) -> str:
 FIT_KEYS = {
     "name", "group", "x", "y", "level", "through_origin", "limit", "horizon", "window",
     "window_x", "min_r2", "alpha", "fleet", "pool_alpha",
-    "bend", "bend_min",
+    "bend", "bend_min", "lower", "upper", "extrapolation_cap",
 }
 
 
@@ -506,6 +524,7 @@ def _parse_fit(raw: Any, index: int, source: Source, path: str | None) -> Fit:
     if bend_min is not None and not 0 < bend_min < 0.5:
         raise SpecError(f"{where}: bend_min is the least share of a group's points on each "
                         "side of a bend, above 0 and below 0.5, e.g. 0.15", file=path)
+    lower, upper, cap = _tolerance(raw, where, path)
     return Fit(
         name=name, group=group, x=x, y=y,
         level=level if level is not None else 0.95,
@@ -520,7 +539,40 @@ def _parse_fit(raw: Any, index: int, source: Source, path: str | None) -> Fit:
         pool_alpha=pool_alpha if pool_alpha is not None else 0.25,
         bend=bend,
         bend_min=bend_min if bend_min is not None else 0.15,
+        lower=lower, upper=upper, extrapolation_cap=cap,
     )
+
+
+def _tolerance(raw: dict[str, Any], where: str,
+               path: str | None) -> tuple[Limit | None, Limit | None, float | None]:
+    """``lower`` and ``upper`` (a number, or ``{ fraction = 0.8, of = "start" }``) and the cap."""
+    sides: dict[str, Limit | None] = {}
+    for side in ("lower", "upper"):
+        value = raw.get(side)
+        if value is None:
+            sides[side] = None
+        elif isinstance(value, dict):
+            _unknown_keys(value, {"fraction", "of"}, f"{where}: {side}", path)
+            fraction = _number(value, "fraction", f"{where}: {side}", path)
+            if fraction is None or fraction <= 0 or value.get("of") != "start":
+                raise SpecError(f"{where}: {side} relative to the unit's first reading is "
+                                "written { fraction = 0.8, of = \"start\" } (a positive "
+                                "fraction)", file=path)
+            sides[side] = Limit(fraction=fraction)
+        else:
+            sides[side] = Limit(value=_number(raw, side, where, path))
+    lower, upper = sides["lower"], sides["upper"]
+    if (lower or upper) and raw.get("limit") is not None:
+        raise SpecError(f"{where}: give limit (the side the slope points to) or lower/upper, "
+                        "not both", file=path)
+    if (lower and upper and lower.value is not None and upper.value is not None
+            and not lower.value < upper.value):
+        raise SpecError(f"{where}: lower must be below upper", file=path)
+    cap = _number(raw, "extrapolation_cap", where, path)
+    if cap is not None and cap <= 0:
+        raise SpecError(f"{where}: extrapolation_cap must be positive (x units beyond the "
+                        "latest x, e.g. 12 for months)", file=path)
+    return lower, upper, cap
 
 
 def _fleet(raw: Any, group: tuple[str, ...], known: dict[str, str], where: str,

@@ -66,7 +66,13 @@ def fit_values(spec: Spec, fit: Fit) -> dict[str, Any]:
         "line": Part("line_origin" if fit.through_origin else "line_intercept"),
         # where the line reaches the limit (sql/parts/): Fieller's ends for either line
         "cross": (Part("cross_origin" if fit.through_origin else "cross_intercept")
-                  if fit.limit is not None else None),
+                  if has_limit(fit) else None),
+        # crossing.sql: the sides of the tolerance, each absolute or a fraction of the start
+        "lower_value": fit.lower.value if fit.lower else None,
+        "lower_fraction": fit.lower.fraction if fit.lower else None,
+        "upper_value": fit.upper.value if fit.upper else None,
+        "upper_fraction": fit.upper.fraction if fit.upper else None,
+        "extrapolation_cap": fit.extrapolation_cap,
         "min_r2": fit.min_r2,
         "alpha": fit.alpha,
         # the fleet columns (possibly none: every unit is one fleet) and the poolability level
@@ -89,6 +95,11 @@ def fit_values(spec: Spec, fit: Fit) -> dict[str, Any]:
     values["moments_table"] = f"tl_moments_{fit.name}"  # moments.py: the stored sums
     values["fit_table"] = f"tl_fit_{fit.name}"  # moments.py: the stored statistics
     return values
+
+
+def has_limit(fit: Fit) -> bool:
+    """Whether the fit has a limit on either side (and so a crossing view)."""
+    return fit.limit is not None or fit.lower is not None or fit.upper is not None
 
 
 def template_for(fit: Fit, file: str) -> str:

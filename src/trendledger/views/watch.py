@@ -43,10 +43,11 @@ SEVERITY: tuple[str, ...] = (
     "slope_changed",
     "bent",
     "crossing_soon",
+    "out_of_limits",
 )
 
 #: Reasons whose detail is a projection (their output carries CAUTION).
-PROJECTIONS = frozenset({"crossing_soon"})
+PROJECTIONS = frozenset({"crossing_soon", "out_of_limits"})
 
 #: Columns of the alerts views after the group columns.
 ALERT_COLUMNS = ("reason", "severity", "detail", "latest_x", "latest_date")
