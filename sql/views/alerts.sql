@@ -17,11 +17,17 @@
 -- Reasons:
 --   too_few_points  the fit's status is too_few_points (fewer than 3 pairs)
 --   low_r2          the fit's r2 is below the fit's min_r2
---   outliers        at least one row of the points view is flagged: the Bonferroni outlier test
---                   on externally studentised residuals at the fit's alpha
---   slope_changed   only when the fit has a change view (a window or window_x): the change
---                   view's difference_p is below alpha, the latest window's slope differs from
---                   the slope of all earlier data
+--   outliers        rows of the points view fail the Bonferroni outlier test on externally
+--                   studentised residuals at alpha_outliers; the group's p is its smallest
+--                   outlier_p. With error_control 'fdr' (the default) the groups' p-values are
+--                   judged together (Benjamini-Hochberg, below) and the rows flagged are those
+--                   at or below the largest p declared significant; with 'unit' each group on
+--                   its own (outlier_p < alpha_outliers). The detail gives the raw p and, with
+--                   'fdr', the adjusted one and the number of groups tested.
+--   slope_changed   only when the fit has a change view (a window or window_x): the latest
+--                   window's slope differs from the slope of all earlier data, difference_p
+--                   judged at alpha_change as the outlier p-values are (raw and adjusted p in
+--                   the detail)
 --   bent            only when the fit has a bend view (a fit with an intercept): it found a
 --                   significant bend (bends > 0), the line since then is
 --                   the one that holds now, e.g. 'the line bent at x = 229: slope -0.00012
@@ -39,6 +45,12 @@
 --   unlike_fleet    the fleet_units view flags the unit: its slope differs from the
 --                   random-effects mean of the other units of its fleet (z test, p below alpha
 --                   divided by the fleet's units), and it follows a line (r2 >= min_r2)
+-- Benjamini-Hochberg (J. R. Stat. Soc. B 57, 1995), per test over the m groups with a p-value:
+-- sort the p-values, p_(1) <= ... <= p_(m); the adjusted p of rank i is the smallest
+-- m p_(j) / j over j >= i, at most 1. Declaring the groups whose adjusted p is below alpha
+-- keeps the expected share of false alarms among the alarms at alpha or below. The bend
+-- search (bent) and the fleet comparison (unlike_fleet, Bonferroni over its fleet) keep their
+-- own rules.
 -- A group has no row when nothing is wrong. Group columns must not be named like a column of
 -- this view or a working column (n, r2, slope, slope_p, status, x_min, x_mean, y_mean,
 -- outliers, flagged_x).
@@ -63,13 +75,61 @@ dates AS MATERIALIZED (
     FROM __source__
     GROUP BY __group__
 ),
-flagged AS MATERIALIZED (
-    SELECT
-        __group__,
-        count(*) FILTER (WHERE outlier) AS outliers,
-        list_sort(list(x) FILTER (WHERE outlier)) AS flagged_x
+tested AS MATERIALIZED (
+    -- each test's p-value per group: the window slope against the earlier slope, the
+    -- smallest Bonferroni outlier p of the group's rows
+    SELECT __group__, 'outliers' AS tl_test, min(outlier_p) AS tl_p
     FROM __points_view__
     GROUP BY __group__
+    HAVING min(outlier_p) IS NOT NULL
+    UNION ALL
+    SELECT __group__, 'slope_changed' AS tl_test, difference_p AS tl_p
+    FROM __change_view_if_any__
+    WHERE difference_p IS NOT NULL
+),
+ranked AS (
+    SELECT
+        *,
+        count(*) OVER (PARTITION BY tl_test) AS tl_m,
+        row_number() OVER (PARTITION BY tl_test
+            ORDER BY tl_p, concat_ws(' / ', __group_text__)) AS tl_rank
+    FROM tested
+),
+adjusted AS MATERIALIZED (
+    -- Benjamini-Hochberg: the smallest m p_(j) / j over the ranks j at or above the group's
+    SELECT
+        *,
+        least(1.0, min(tl_p * tl_m / tl_rank) OVER (PARTITION BY tl_test ORDER BY tl_rank DESC
+            ROWS BETWEEN UNBOUNDED PRECEDING AND CURRENT ROW)) AS tl_p_fdr,
+        CASE
+            WHEN tl_test = 'slope_changed' THEN CAST(__alpha_change__ AS DOUBLE)
+            ELSE CAST(__alpha_outliers__ AS DOUBLE)
+        END AS tl_alpha
+    FROM ranked
+),
+judged AS MATERIALIZED (
+    SELECT
+        *,
+        CASE WHEN __error_control__ = 'fdr' THEN tl_p_fdr ELSE tl_p END < tl_alpha AS tl_hit,
+        -- the largest p declared significant: rows at or below it are flagged (step-up rule)
+        max(CASE WHEN (CASE WHEN __error_control__ = 'fdr' THEN tl_p_fdr ELSE tl_p END)
+            < tl_alpha THEN tl_p END) OVER (PARTITION BY tl_test) AS tl_cut
+    FROM adjusted
+),
+flagged AS MATERIALIZED (
+    SELECT
+        p.__group__,
+        count(*) AS outliers,
+        list_sort(list(p.x)) AS flagged_x,
+        any_value(j.tl_p) AS tl_p,
+        any_value(j.tl_p_fdr) AS tl_p_fdr,
+        any_value(j.tl_m) AS tl_m
+    FROM __points_view__ AS p
+    JOIN judged AS j ON ROW(j.__group__) IS NOT DISTINCT FROM ROW(p.__group__)
+        AND j.tl_test = 'outliers'
+    WHERE j.tl_hit AND CASE WHEN __error_control__ = 'fdr' THEN p.outlier_p <= j.tl_cut
+        ELSE p.outlier_p < j.tl_alpha END
+    GROUP BY p.__group__
 ),
 reasons AS (
     SELECT __group__, 'too_few_points' AS reason, 1 AS severity,
@@ -82,18 +142,32 @@ reasons AS (
     WHERE r2 < __min_r2__
     UNION ALL
     SELECT __group__, 'outliers', 3,
-        format('{} reading(s) flagged (Bonferroni, alpha {:g}) at x = {}{}', outliers, __alpha__,
+        format('{} reading(s) flagged (Bonferroni, alpha {:g}) at x = {}{}; p {:.2g}{}',
+            outliers, __alpha_outliers__,
             array_to_string(list_transform(list_slice(flagged_x, 1, 5),
                 lambda tl_x: format('{:g}', tl_x)), ', '),
-            CASE WHEN outliers > 5 THEN ', ...' ELSE '' END)
+            CASE WHEN outliers > 5 THEN ', ...' ELSE '' END, tl_p,
+            CASE
+                WHEN __error_control__ = 'fdr'
+                    THEN format(', {:.2g} adjusted over {} units (Benjamini-Hochberg)', tl_p_fdr,
+                        tl_m)
+                ELSE ''
+            END)
     FROM flagged
-    WHERE outliers > 0
     UNION ALL
-    SELECT __group__, 'slope_changed', 5,
-        format('slope {:.3g} in the window from {} against {:.3g} before: p {:.2g} < {:g}',
-            slope_recent, window_start, slope_before, difference_p, __alpha__)
-    FROM __change_view_if_any__
-    WHERE difference_p < __alpha__
+    SELECT c.__group__, 'slope_changed', 5,
+        format('slope {:.3g} in the window from {} against {:.3g} before: p {:.2g}{} < {:g}',
+            c.slope_recent, c.window_start, c.slope_before, c.difference_p,
+            CASE
+                WHEN __error_control__ = 'fdr'
+                    THEN format(', {:.2g} adjusted over {} units (Benjamini-Hochberg)',
+                        j.tl_p_fdr, j.tl_m)
+                ELSE ''
+            END, __alpha_change__)
+    FROM __change_view_if_any__ AS c
+    JOIN judged AS j ON ROW(j.__group__) IS NOT DISTINCT FROM ROW(c.__group__)
+        AND j.tl_test = 'slope_changed'
+    WHERE j.tl_hit
     UNION ALL
     SELECT __group__, 'bent', 6,
         format('the line bent at x = {:.4g}: slope {:.3g} before, {:.3g} after, p {}', bend_x,

@@ -22,8 +22,9 @@
 --                     the line moves when the row is left out, in units of its confidence region
 --   outlier_p         Bonferroni-adjusted p-value of residual_t: least(1, n p) with p the
 --                     two-sided p-value of residual_t (n - 3 degrees of freedom)
---   outlier           outlier_p < alpha (the fit's alpha): the Bonferroni outlier test on the
---                     externally studentised residuals, over the n rows of the group
+--   outlier           outlier_p < alpha_outliers (the fit's alpha unless set): the Bonferroni
+--                     test on the externally studentised residuals, over the n rows of the
+--                     group (judged per group; the alerts view judges the groups together)
 --
 -- What is NULL: a row whose x or y is missing or not finite has only the group columns, x, y,
 -- file_id and (x finite) y_line. y_line and residual need a line (fit status ok, constant_y,
@@ -123,7 +124,7 @@ SELECT
     __line__.cook_distance AS cook_distance,
     p_adj AS outlier_p,
     CASE
-        WHEN p_adj IS NOT NULL THEN p_adj < __alpha__
+        WHEN p_adj IS NOT NULL THEN p_adj < __alpha_outliers__
         WHEN counted AND status IN ('perfect_fit', __line__.no_spread) THEN false
     END AS outlier
 FROM adjusted

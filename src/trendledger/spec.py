@@ -89,6 +89,14 @@ class Fit:
     #: the longest projection beyond the latest x, in x units (ICH Q1E: 12 months); the other
     #: half of the rule, at most the period the data cover, always applies
     extrapolation_cap: float | None = None
+    #: the level of each test, each ``alpha`` unless given: the window slope against the earlier
+    #: one, the outlier test, the latest readings against the earlier line (out-of-trend)
+    alpha_change: float = 0.01
+    alpha_outliers: float = 0.01
+    alpha_trend: float = 0.01
+    #: "fdr": each test's p-values are judged across the units of the fit (Benjamini-Hochberg);
+    #: "unit": each unit on its own
+    error_control: str = "fdr"
 
     @property
     def view(self) -> str:
@@ -439,7 +447,9 @@ FIT_KEYS = {
     "name", "group", "x", "y", "level", "through_origin", "limit", "horizon", "window",
     "window_x", "min_r2", "alpha", "fleet", "pool_alpha",
     "bend", "bend_min", "lower", "upper", "extrapolation_cap",
+    "alpha_change", "alpha_outliers", "alpha_trend", "error_control",
 }
+ERROR_CONTROLS = ("fdr", "unit")
 
 
 def _parse_fit(raw: Any, index: int, source: Source, path: str | None) -> Fit:
@@ -540,7 +550,25 @@ def _parse_fit(raw: Any, index: int, source: Source, path: str | None) -> Fit:
         bend=bend,
         bend_min=bend_min if bend_min is not None else 0.15,
         lower=lower, upper=upper, extrapolation_cap=cap,
+        **_alphas(raw, alpha if alpha is not None else 0.01, where, path),
     )
+
+
+def _alphas(raw: dict[str, Any], alpha: float, where: str, path: str | None) -> dict[str, Any]:
+    """The level of each test (``alpha`` unless given) and how p-values are judged."""
+    out: dict[str, Any] = {}
+    for key in ("alpha_change", "alpha_outliers", "alpha_trend"):
+        value = _number(raw, key, where, path)
+        if value is not None and not 0 < value < 0.5:
+            raise SpecError(f"{where}: {key} must be between 0 and 0.5, e.g. 0.01", file=path)
+        out[key] = value if value is not None else alpha
+    control = raw.get("error_control", "fdr")
+    if control not in ERROR_CONTROLS:
+        raise SpecError(f"{where}: error_control must be \"fdr\" (Benjamini-Hochberg across the "
+                        "units of the fit) or \"unit\" (each unit on its own)", file=path,
+                        hint=did_you_mean(str(control), ERROR_CONTROLS))
+    out["error_control"] = control
+    return out
 
 
 def _tolerance(raw: dict[str, Any], where: str,

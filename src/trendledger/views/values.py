@@ -75,6 +75,11 @@ def fit_values(spec: Spec, fit: Fit) -> dict[str, Any]:
         "extrapolation_cap": fit.extrapolation_cap,
         "min_r2": fit.min_r2,
         "alpha": fit.alpha,
+        "alpha_change": fit.alpha_change,
+        "alpha_outliers": fit.alpha_outliers,
+        "alpha_trend": fit.alpha_trend,
+        # alerts.sql: 'fdr' (Benjamini-Hochberg across the fit's units) or 'unit'
+        "error_control": Text(fit.error_control),
         # the fleet columns (possibly none: every unit is one fleet) and the poolability level
         "fleet": list(fit.fleet),
         "pool_alpha": fit.pool_alpha,
