@@ -274,3 +274,91 @@ def test_benjamini_hochberg_against_statsmodels(fleet: Path) -> None:
     outliers_unit = (per_unit["reason"] == "outliers").sum()
     outliers_fdr = (alerts["reason"] == "outliers").sum()
     assert lo <= outliers_unit <= hi and outliers_fdr <= 1
+
+
+# --- out-of-trend readings ----------------------------------------------------------------------
+
+
+def _pulls(rng: np.random.Generator, low: float = 0.0) -> list[tuple[int, float]]:
+    """A stability lot: assay (%) at months 0 to 18, three readings a pull; the last pull
+    (month 21) is ``low`` below the line."""
+    rows = [(m, float(100.0 - 0.12 * m + rng.normal(0, 0.15)))
+            for m in (0, 3, 6, 9, 12, 18) for _ in range(3)]
+    return rows + [(21, float(100.0 - 0.12 * 21 - low + rng.normal(0, 0.15)))]
+
+
+def _two_batches(lab: Lab, lots: dict[str, list[tuple[int, float]]]) -> None:
+    """Every reading but each lot's last in one batch, the last readings in a second."""
+    lab.series({k: v[:-1] for k, v in lots.items()}, per_day=100)
+    with lab.init() as led:
+        led.append()
+    for lot, rows in lots.items():
+        x, y = rows[-1]
+        lab.write(f"incoming/2026-09-01/{lot}.csv", f"cycle,capacity_ah\n{x},{y!r}\n")
+    with lab.open() as led:
+        led.append()
+
+
+@pytest.fixture(scope="module")
+def lots(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, dict]:
+    rng = np.random.default_rng(1802)
+    data = {f"lot{i:03d}": _pulls(rng) for i in range(220)}
+    data["lowpull"] = _pulls(rng, low=1.8)  # a pull 1.8 % low
+    lab = Lab(tmp_path_factory.mktemp("lots") / "lab",
+              _spec('alpha_trend = 0.05\nbend = "none"\n')
+              + SPEC[SPEC.index("[[fit]]"):].replace('"fade"', '"perunit"')
+              + 'alpha_trend = 0.05\nbend = "none"\nerror_control = "unit"\n')
+    _two_batches(lab, data)
+    return lab.store, data
+
+
+def test_prediction_interval_against_statsmodels(lots: tuple[Path, dict]) -> None:
+    store, data = lots
+    with Ledger.open(store, read_only=True) as led:
+        trend = led.fits("fade", view="trend").set_index("cell")
+    assert len(trend) == len(data)
+    for lot in ("lot000", "lot001", "lowpull"):
+        rows = data[lot]
+        x = np.array([r[0] for r in rows[:-1]], dtype=float)
+        y = np.array([r[1] for r in rows[:-1]])
+        res = _ols(x, y)
+        pred = res.get_prediction(np.array([[1.0, rows[-1][0]]]))
+        # reference: statsmodels get_prediction(...).conf_int(obs=True) on the earlier rows
+        lo, hi = pred.conf_int(obs=True, alpha=0.05)[0]
+        row = trend.loc[lot]
+        assert row["n_before"] == len(x)
+        assert row["y_before"] == pytest.approx(pred.predicted_mean[0], rel=1e-10)
+        assert (row["pred_lo"], row["pred_hi"]) == pytest.approx((lo, hi), rel=1e-10)
+        # reference: scipy.stats.t two-sided p of the standardised prediction error
+        from scipy import stats
+
+        se = math_sqrt(pred.se_mean[0] ** 2 + res.scale)
+        t = (rows[-1][1] - pred.predicted_mean[0]) / se
+        assert row["trend_p"] == pytest.approx(2 * stats.t.sf(abs(t), res.df_resid), rel=1e-6)
+    assert bool(trend.loc["lowpull", "outside"])
+
+
+def math_sqrt(v: float) -> float:
+    return float(np.sqrt(v))
+
+
+def test_out_of_trend_alerts(lots: tuple[Path, dict]) -> None:
+    from scipy import stats
+    from statsmodels.stats.multitest import multipletests
+
+    store, data = lots
+    with Ledger.open(store, read_only=True) as led:
+        trend = led.fits("fade", view="trend")
+        fdr = led.watch("fade")
+        unit = led.watch("perunit")
+    fdr_hits = set(fdr.loc[fdr["reason"] == "out_of_trend", "cell"])
+    unit_hits = set(unit.loc[unit["reason"] == "out_of_trend", "cell"])
+    assert "lowpull" in fdr_hits and "lowpull" in unit_hits
+    # reference: statsmodels multipletests(method="fdr_bh") on the trend view's p-values
+    reject = multipletests(trend["trend_p"], alpha=0.05, method="fdr_bh")[0]
+    assert fdr_hits == set(trend["cell"][reject])
+    # 220 lots on their line: per unit about 5 % false alarms, within the binomial band
+    # (scipy binom, two-sided 99.9 %); together about none
+    lo, hi = stats.binom.ppf([0.0005, 0.9995], 220, 0.05)
+    assert lo <= len(unit_hits - {"lowpull"}) <= hi
+    assert len(fdr_hits - {"lowpull"}) <= 1

@@ -21,13 +21,18 @@
 --                   studentised residuals at alpha_outliers; the group's p is its smallest
 --                   outlier_p. With error_control 'fdr' (the default) the groups' p-values are
 --                   judged together (Benjamini-Hochberg, below) and the rows flagged are those
---                   at or below the largest p declared significant; with 'unit' each group on
---                   its own (outlier_p < alpha_outliers). The detail gives the raw p and, with
+--                   whose outlier_p is at most the step-up cut alpha k / m; with 'unit' each
+--                   group on its own (outlier_p < alpha_outliers). The detail gives the raw p and, with
 --                   'fdr', the adjusted one and the number of groups tested.
 --   slope_changed   only when the fit has a change view (a window or window_x): the latest
 --                   window's slope differs from the slope of all earlier data, difference_p
 --                   judged at alpha_change as the outlier p-values are (raw and adjusted p in
 --                   the detail)
+--   out_of_trend    only for a fit with an intercept: readings of the fit's latest batch lie
+--                   outside the prediction interval of the group's line through its earlier
+--                   readings (the trend view); the group's p is k times its smallest trend_p
+--                   (Bonferroni over its k readings in the batch), judged at alpha_trend as the
+--                   outlier p-values are
 --   bent            only when the fit has a bend view (a fit with an intercept): it found a
 --                   significant bend (bends > 0), the line since then is
 --                   the one that holds now, e.g. 'the line bent at x = 229: slope -0.00012
@@ -78,14 +83,21 @@ dates AS MATERIALIZED (
 tested AS MATERIALIZED (
     -- each test's p-value per group: the window slope against the earlier slope, the
     -- smallest Bonferroni outlier p of the group's rows
-    SELECT __group__, 'outliers' AS tl_test, min(outlier_p) AS tl_p
+    SELECT __group__, 'outliers' AS tl_test, min(outlier_p) AS tl_p, 1 AS tl_k
     FROM __points_view__
     GROUP BY __group__
     HAVING min(outlier_p) IS NOT NULL
     UNION ALL
-    SELECT __group__, 'slope_changed' AS tl_test, difference_p AS tl_p
+    SELECT __group__, 'slope_changed' AS tl_test, difference_p AS tl_p, 1 AS tl_k
     FROM __change_view_if_any__
     WHERE difference_p IS NOT NULL
+    UNION ALL
+    -- the latest batch's readings of the group: Bonferroni over them (k readings)
+    SELECT __group__, 'out_of_trend' AS tl_test, least(1.0, count(*) * min(trend_p)) AS tl_p,
+        count(*) AS tl_k
+    FROM __trend_view_if_any__
+    WHERE trend_p IS NOT NULL
+    GROUP BY __group__
 ),
 ranked AS (
     SELECT
@@ -103,6 +115,7 @@ adjusted AS MATERIALIZED (
             ROWS BETWEEN UNBOUNDED PRECEDING AND CURRENT ROW)) AS tl_p_fdr,
         CASE
             WHEN tl_test = 'slope_changed' THEN CAST(__alpha_change__ AS DOUBLE)
+            WHEN tl_test = 'out_of_trend' THEN CAST(__alpha_trend__ AS DOUBLE)
             ELSE CAST(__alpha_outliers__ AS DOUBLE)
         END AS tl_alpha
     FROM ranked
@@ -111,9 +124,10 @@ judged AS MATERIALIZED (
     SELECT
         *,
         CASE WHEN __error_control__ = 'fdr' THEN tl_p_fdr ELSE tl_p END < tl_alpha AS tl_hit,
-        -- the largest p declared significant: rows at or below it are flagged (step-up rule)
-        max(CASE WHEN (CASE WHEN __error_control__ = 'fdr' THEN tl_p_fdr ELSE tl_p END)
-            < tl_alpha THEN tl_p END) OVER (PARTITION BY tl_test) AS tl_cut
+        -- the step-up cut alpha k / m, k the largest rank declared: a row (a reading) is
+        -- flagged when its p is at most the cut (with 'unit': below alpha)
+        tl_alpha * max(CASE WHEN tl_p_fdr < tl_alpha THEN tl_rank END)
+            OVER (PARTITION BY tl_test) / tl_m AS tl_cut
     FROM adjusted
 ),
 flagged AS MATERIALIZED (
@@ -169,6 +183,25 @@ reasons AS (
         AND j.tl_test = 'slope_changed'
     WHERE j.tl_hit
     UNION ALL
+    SELECT t.__group__, 'out_of_trend', 7,
+        format('latest reading(s) at x = {} outside the {:g} % prediction interval of the '
+            || 'line through the {} earlier reading(s): p {:.2g}{} < {:g}',
+            array_to_string(list_transform(list_sort(list(t.x)),
+                lambda tl_x: format('{:g}', tl_x)), ', '),
+            100 * (1 - __alpha_trend__), any_value(t.n_before), any_value(j.tl_p),
+            CASE
+                WHEN __error_control__ = 'fdr'
+                    THEN format(', {:.2g} adjusted over {} units (Benjamini-Hochberg)',
+                        any_value(j.tl_p_fdr), any_value(j.tl_m))
+                ELSE ''
+            END, __alpha_trend__)
+    FROM __trend_view_if_any__ AS t
+    JOIN judged AS j ON ROW(j.__group__) IS NOT DISTINCT FROM ROW(t.__group__)
+        AND j.tl_test = 'out_of_trend'
+    WHERE j.tl_hit AND CASE WHEN __error_control__ = 'fdr' THEN t.trend_p * j.tl_k <= j.tl_cut
+        ELSE t.trend_p * j.tl_k < j.tl_alpha END
+    GROUP BY t.__group__
+    UNION ALL
     SELECT __group__, 'bent', 6,
         format('the line bent at x = {:.4g}: slope {:.3g} before, {:.3g} after, p {}', bend_x,
             slope_before, slope_after,
@@ -176,14 +209,14 @@ reasons AS (
     FROM __bend_view_if_any__
     WHERE bends > 0
     UNION ALL
-    SELECT __group__, 'out_of_limits', 8,
+    SELECT __group__, 'out_of_limits', 9,
         format('the line is at {:.4g} at the latest x {:g}, {} the {} limit {:.4g}',
             line_at_latest, latest_x, CASE WHEN side = 'lower' THEN 'below' ELSE 'above' END,
             side, limit_value)
     FROM __crossing_view_if_any__
     WHERE past
     UNION ALL
-    SELECT __group__, 'crossing_soon', 7,
+    SELECT __group__, 'crossing_soon', 8,
         format('the one-sided 95% bound {} the {} limit {:.4g} at x = {:.4g}{}{}{}{}',
             CASE WHEN cross_bound <= latest_x THEN 'met' ELSE 'meets' END, side, limit_value,
             cross_bound,

@@ -29,6 +29,8 @@ KINDS: tuple[tuple[str, str, tuple[str, ...]], ...] = (
     ("change", "_change", ("change",)),
     ("break", "_break", ("break",)),
     ("crossing", "_crossing", ("crossing",)),
+    # the latest batch's readings against the line through the earlier ones (out-of-trend)
+    ("trend", "_trend", ("trend",)),
     ("fleet", "_fleet", ("fleet",)),  # each fleet of units taken together
     ("fleet_units", "_fleet_units", ("fleet_units",)),  # each unit against its fleet
     ("alerts", "_alerts", ("alerts",)),

@@ -42,6 +42,7 @@ SEVERITY: tuple[str, ...] = (
     "unlike_fleet",
     "slope_changed",
     "bent",
+    "out_of_trend",
     "crossing_soon",
     "out_of_limits",
 )
