@@ -16,7 +16,9 @@ def test_valid_spec_parses_with_defaults() -> None:
     assert spec.source.fields == {"day": "DATE", "cell": "VARCHAR"}
     fit = spec.fit("fade")
     assert (fit.x, fit.y, fit.group, fit.level, fit.min_r2, fit.alpha) == (
-        "cycle", "capacity_ah", ("cell",), 0.95, 0.9, 0.01)
+        "cycle", "capacity_ah", ("cell",), 0.95, None, 0.01)
+    assert (fit.alpha_change, fit.alpha_outliers, fit.alpha_trend, fit.error_control) == (
+        0.01, 0.01, 0.01, "fdr")
     assert spec.fit(None) is fit
     assert (fit.bend, fit.bend_min) == ("joined", 0.15)
     assert len(spec.digest) == 64

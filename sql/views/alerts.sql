@@ -1,22 +1,26 @@
--- What needs a look today: one row per group and reason (too_few_points, low_r2, outliers,
--- unlike_fleet, slope_changed, bent, crossing_soon, out_of_limits), with a short detail and the
--- group's latest x and date.
+-- What needs a look today: one row per group and reason (too_few_points, low_r2, not_straight,
+-- outliers, unlike_fleet, slope_changed, bent, out_of_trend, crossing_soon, out_of_limits), with
+-- a short detail and the group's latest x and date.
 
 -- Columns:
 --   fit_name        the fit's name (so the alerts of several fits can be stacked)
 --   unit_label      the group values as text joined by ' / ' (a NULL value written NULL)
 --   group columns   as in the fit view
 --   reason          one of the words below
---   severity        1 too_few_points, 2 low_r2, 3 outliers, 4 unlike_fleet, 5 slope_changed,
---                   6 bent, 7 crossing_soon, 8 out_of_limits (the order `trendledger watch
---                   --fail-on` uses)
+--   severity        1 too_few_points, 2 low_r2, 3 not_straight, 4 outliers, 5 unlike_fleet, 6
+--                   slope_changed, 7 bent, 8 out_of_trend, 9 crossing_soon, 10 out_of_limits (the
+--                   order `trendledger watch --fail-on` uses)
 --   detail          the numbers behind the reason, in words, e.g. 'r2 0.773 < 0.9'
 --   latest_x        the group's largest x (x_max of the fit view)
 --   latest_date     the group's latest value of the spec's first date or timestamp field, NULL
 --                   when the spec has none
 -- Reasons:
 --   too_few_points  the fit's status is too_few_points (fewer than 3 pairs)
---   low_r2          the fit's r2 is below the fit's min_r2
+--   low_r2          only when the fit sets min_r2 (unset by default): the fit's r2 is below it.
+--                   A flat trend inside its noise has an r2 near 0 and nothing wrong with it.
+--   not_straight    the readings do not follow a straight line: the quadratic term's t test of
+--                   the straight view (a lack-of-fit test against a curve) at the fit's alpha,
+--                   judged across the units as the outlier p-values are
 --   outliers        rows of the points view fail the Bonferroni outlier test on externally
 --                   studentised residuals at alpha_outliers; the group's p is its smallest
 --                   outlier_p. With error_control 'fdr' (the default) the groups' p-values are
@@ -92,6 +96,10 @@ tested AS MATERIALIZED (
     FROM __change_view_if_any__
     WHERE difference_p IS NOT NULL
     UNION ALL
+    SELECT __group__, 'not_straight' AS tl_test, curvature_p AS tl_p, 1 AS tl_k
+    FROM __straight_view_if_any__
+    WHERE curvature_p IS NOT NULL
+    UNION ALL
     -- the latest batch's readings of the group: Bonferroni over them (k readings)
     SELECT __group__, 'out_of_trend' AS tl_test, least(1.0, count(*) * min(trend_p)) AS tl_p,
         count(*) AS tl_k
@@ -116,6 +124,7 @@ adjusted AS MATERIALIZED (
         CASE
             WHEN tl_test = 'slope_changed' THEN CAST(__alpha_change__ AS DOUBLE)
             WHEN tl_test = 'out_of_trend' THEN CAST(__alpha_trend__ AS DOUBLE)
+            WHEN tl_test = 'not_straight' THEN CAST(__alpha__ AS DOUBLE)
             ELSE CAST(__alpha_outliers__ AS DOUBLE)
         END AS tl_alpha
     FROM ranked
@@ -151,11 +160,25 @@ reasons AS (
     FROM groups
     WHERE status = 'too_few_points'
     UNION ALL
-    SELECT __group__, 'low_r2', 2, format('r2 {:.3g} < {:g}', r2, __min_r2__)
+    SELECT __group__, 'low_r2', 2, format('r2 {:.3g} < {:g}', r2, __min_r2_or_null__)
     FROM groups
-    WHERE r2 < __min_r2__
+    WHERE r2 < __min_r2_or_null__
     UNION ALL
-    SELECT __group__, 'outliers', 3,
+    SELECT s.__group__, 'not_straight', 3,
+        format('the readings curve: quadratic term {:.3g} (t {:.3g}), p {:.2g}{} < {:g}',
+            s.curvature, s.curvature_t, s.curvature_p,
+            CASE
+                WHEN __error_control__ = 'fdr'
+                    THEN format(', {:.2g} adjusted over {} units (Benjamini-Hochberg)',
+                        j.tl_p_fdr, j.tl_m)
+                ELSE ''
+            END, __alpha__)
+    FROM __straight_view_if_any__ AS s
+    JOIN judged AS j ON ROW(j.__group__) IS NOT DISTINCT FROM ROW(s.__group__)
+        AND j.tl_test = 'not_straight'
+    WHERE j.tl_hit
+    UNION ALL
+    SELECT __group__, 'outliers', 4,
         format('{} reading(s) flagged (Bonferroni, alpha {:g}) at x = {}{}; p {:.2g}{}',
             outliers, __alpha_outliers__,
             array_to_string(list_transform(list_slice(flagged_x, 1, 5),
@@ -169,7 +192,7 @@ reasons AS (
             END)
     FROM flagged
     UNION ALL
-    SELECT c.__group__, 'slope_changed', 5,
+    SELECT c.__group__, 'slope_changed', 6,
         format('slope {:.3g} in the window from {} against {:.3g} before: p {:.2g}{} < {:g}',
             c.slope_recent, c.window_start, c.slope_before, c.difference_p,
             CASE
@@ -183,7 +206,7 @@ reasons AS (
         AND j.tl_test = 'slope_changed'
     WHERE j.tl_hit
     UNION ALL
-    SELECT t.__group__, 'out_of_trend', 7,
+    SELECT t.__group__, 'out_of_trend', 8,
         format('latest reading(s) at x = {} outside the {:g} % prediction interval of the '
             || 'line through the {} earlier reading(s): p {:.2g}{} < {:g}',
             array_to_string(list_transform(list_sort(list(t.x)),
@@ -202,21 +225,21 @@ reasons AS (
         ELSE t.trend_p * j.tl_k < j.tl_alpha END
     GROUP BY t.__group__
     UNION ALL
-    SELECT __group__, 'bent', 6,
+    SELECT __group__, 'bent', 7,
         format('the line bent at x = {:.4g}: slope {:.3g} before, {:.3g} after, p {}', bend_x,
             slope_before, slope_after,
             CASE WHEN bend_p = 0 THEN '< 1e-300' ELSE format('{:.2g}', bend_p) END)
     FROM __bend_view_if_any__
     WHERE bends > 0
     UNION ALL
-    SELECT __group__, 'out_of_limits', 9,
+    SELECT __group__, 'out_of_limits', 10,
         format('the line is at {:.4g} at the latest x {:g}, {} the {} limit {:.4g}',
             line_at_latest, latest_x, CASE WHEN side = 'lower' THEN 'below' ELSE 'above' END,
             side, limit_value)
     FROM __crossing_view_if_any__
     WHERE past
     UNION ALL
-    SELECT __group__, 'crossing_soon', 8,
+    SELECT __group__, 'crossing_soon', 9,
         format('the one-sided 95% bound {} the {} limit {:.4g} at x = {:.4g}{}{}{}{}',
             CASE WHEN cross_bound <= latest_x THEN 'met' ELSE 'meets' END, side, limit_value,
             cross_bound,
@@ -239,7 +262,7 @@ reasons AS (
     -- judged on the conservative bound; a side already past is out_of_limits instead
     WHERE NOT past AND cross_bound <= latest_x + CAST(__horizon_or_null__ AS DOUBLE)
     UNION ALL
-    SELECT __group__, 'unlike_fleet', 4,
+    SELECT __group__, 'unlike_fleet', 5,
         format('slope {:.3g} against {:.3g} for its {} siblings (z {:.3g}, p {:.2g} < {:g} / {})',
             slope, fleet_slope, units - 1, slope_z, slope_z_p, __alpha__, units)
     FROM __fleet_units_view__

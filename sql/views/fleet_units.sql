@@ -23,7 +23,7 @@
 --   slope_shrunk    empirical-Bayes slope: the fleet's random-effects mean m plus
 --                   tau^2 / (tau^2 + slope_se^2) (slope - m), with the whole fleet's tau
 --   unlike          slope_z_p below the fit's alpha divided by units (Bonferroni over the fleet)
---                   and the unit's r2 at least the fit's min_r2: a unit that does not follow a
+--                   and the unit's r2 at least the fit's min_r2 (0.9 unless set): a unit that does not follow a
 --                   line is reported as low_r2, and its one slope says little about it
 --   note            why values are missing: 'not in the fleet: <fit status>', 'fewer than 3
 --                   units in the fleet' (no leave-one-out spread)
@@ -145,7 +145,7 @@ SELECT
                 * (r.slope - r.tl_mean)
     END AS slope_shrunk,
     CASE
-        WHEN t.tl_z_p IS NOT NULL THEN t.tl_z_p < __alpha__ / r.tl_k AND r.r2 >= __min_r2__
+        WHEN t.tl_z_p IS NOT NULL THEN t.tl_z_p < __alpha__ / r.tl_k AND r.r2 >= __fleet_min_r2__
     END AS unlike,
     CASE
         WHEN NOT r.tl_in THEN 'not in the fleet: ' || r.status

@@ -68,9 +68,10 @@ def run(folder: Path, *, days: int | None = None, echo: Echo = print) -> Path:
         echo(f"\nfit {fit.name!r}: {fit.y} against {fit.x} per {', '.join(fit.group)}, "
              "worst r2 first (10 of " + str(len(led.fits(fit.name))) + ")")
         echo(render(table[[c for c in cols if c in table.columns]]).rstrip())
-        bent = led.fits(fit.name, where=f"r2 < {fit.min_r2}", sort="r2")
-        names = ", ".join(str(v) for v in bent[fit.group[0]]) or "none"
-        echo(f"\nnot linear (r2 below {fit.min_r2}): {names}")
+        if fit.min_r2 is not None:
+            bent = led.fits(fit.name, where=f"r2 < {fit.min_r2}", sort="r2")
+            names = ", ".join(str(v) for v in bent[fit.group[0]]) or "none"
+            echo(f"\nnot linear (r2 below {fit.min_r2}): {names}")
         try:
             page = led.report(fit.name, out=folder / "report")
         except ReportError as err:  # matplotlib is an optional extra

@@ -74,7 +74,8 @@ class Fit:
     horizon: float | None = None
     window: str | None = None
     window_x: float | None = None
-    min_r2: float = 0.9
+    #: raise low_r2 below this r2 (None: never; not_straight is the test of a straight line)
+    min_r2: float | None = None
     alpha: float = 0.01
     #: the group columns whose values make a fleet of units (empty: the whole fit is one fleet)
     fleet: tuple[str, ...] = ()
@@ -543,7 +544,7 @@ def _parse_fit(raw: Any, index: int, source: Source, path: str | None) -> Fit:
         horizon=horizon,
         window=window,
         window_x=window_x,
-        min_r2=min_r2 if min_r2 is not None else 0.9,
+        min_r2=min_r2,
         alpha=alpha if alpha is not None else 0.01,
         fleet=fleet,
         pool_alpha=pool_alpha if pool_alpha is not None else 0.25,

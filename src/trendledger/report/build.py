@@ -243,12 +243,13 @@ def _alerts(con: duckdb.DuckDBPyConnection, views: Views, fits: pd.DataFrame
         order = sorted(range(len(frame)),
                        key=lambda i: (natural_key(frame[LABEL].iloc[i]), rank.iloc[i]))
         return frame.iloc[order].reset_index(drop=True), None
-    low = fits[fits["r2"].notna() & (fits["r2"] < fit.min_r2)] if "r2" in fits else fits[:0]
+    floor = fit.min_r2 if fit.min_r2 is not None else 0.0
+    low = fits[fits["r2"].notna() & (fits["r2"] < floor)] if "r2" in fits else fits[:0]
     frame = low[[*fit.group, LABEL]].copy()
     frame["reason"] = "low_r2"
-    frame["detail"] = [f"r2 = {v:.4g}, below min_r2 = {fit.min_r2:g}" for v in low["r2"]]
+    frame["detail"] = [f"r2 = {v:.4g}, below min_r2 = {floor:g}" for v in low["r2"]]
     note = (f"The store has no alerts view ({views.name('alerts')}); alerting groups here are "
-            f"those whose r2 is below min_r2 = {fit.min_r2:g}, read from the fit view.")
+            f"those whose r2 is below min_r2 = {floor:g} (unset: none), read from the fit view.")
     return frame, note
 
 
@@ -654,7 +655,7 @@ def build(
                           "(see their status in the fits table) and are not plotted.")
     if len(plotted):
         ref: tuple[float, str] | None = None
-        if x_col == "r2":
+        if x_col == "r2" and fit.min_r2 is not None:
             ref = (fit.min_r2, f"min_r2 {fit.min_r2:g}")
         drawn = plots.overview(
             plotted[x_col].astype(float), plotted[y_col].astype(float), list(plotted[LABEL]),

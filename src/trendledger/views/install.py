@@ -38,7 +38,7 @@ TABLE_MACROS = frozenset({"break"})
 #: only from an ``_origin`` twin of the template, never from the plain one. A kind missing here
 #: takes the fit's line from the slots ``__line__`` and ``__cross__`` (sql/parts/).
 INTERCEPT_ONLY = frozenset({"windows", "bend_rounds", "bend", "change", "break", "alerts", "fleet",
-                            "fleet_units", "trend"})
+                            "fleet_units", "trend", "straight"})
 
 
 @dataclass(frozen=True)

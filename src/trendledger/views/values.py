@@ -29,6 +29,8 @@ KINDS: tuple[tuple[str, str, tuple[str, ...]], ...] = (
     ("change", "_change", ("change",)),
     ("break", "_break", ("break",)),
     ("crossing", "_crossing", ("crossing",)),
+    # whether the readings follow a straight line (a quadratic term's t test)
+    ("straight", "_straight", ("straight",)),
     # the latest batch's readings against the line through the earlier ones (out-of-trend)
     ("trend", "_trend", ("trend",)),
     ("fleet", "_fleet", ("fleet",)),  # each fleet of units taken together
@@ -76,6 +78,9 @@ def fit_values(spec: Spec, fit: Fit) -> dict[str, Any]:
         "upper_fraction": fit.upper.fraction if fit.upper else None,
         "extrapolation_cap": fit.extrapolation_cap,
         "min_r2": fit.min_r2,
+        # fleet_units.sql: a unit is compared with its fleet when it follows a line, r2 at
+        # least min_r2 (0.9 when the fit leaves min_r2 unset)
+        "fleet_min_r2": fit.min_r2 if fit.min_r2 is not None else 0.9,
         "alpha": fit.alpha,
         "alpha_change": fit.alpha_change,
         "alpha_outliers": fit.alpha_outliers,

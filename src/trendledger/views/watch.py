@@ -38,6 +38,7 @@ POOL_CAUTION = ("pooling units for a shelf life is a regulated decision: the fle
 SEVERITY: tuple[str, ...] = (
     "too_few_points",
     "low_r2",
+    "not_straight",
     "outliers",
     "unlike_fleet",
     "slope_changed",
