@@ -362,3 +362,52 @@ def test_out_of_trend_alerts(lots: tuple[Path, dict]) -> None:
     lo, hi = stats.binom.ppf([0.0005, 0.9995], 220, 0.05)
     assert lo <= len(unit_hits - {"lowpull"}) <= hi
     assert len(fdr_hits - {"lowpull"}) <= 1
+
+
+# --- a straight line, or not --------------------------------------------------------------------
+
+
+def test_straight_view_against_statsmodels_and_no_alarm_for_a_flat_unit(tmp_path: Path) -> None:
+    rng = np.random.default_rng(2)
+    xs = np.arange(0, 50)
+    cells = {
+        "flat": [(int(x), float(3.0 + rng.normal(0, 0.05))) for x in xs],  # r2 near 0
+        "curve": [(int(x), float(3.0 - 0.0004 * x * x + rng.normal(0, 0.01))) for x in xs],
+        "line": [(int(x), float(3.0 - 0.01 * x + rng.normal(0, 0.01))) for x in xs],
+    }
+    lab = Lab(tmp_path / "lab", _spec('lower = 2.0\nupper = 4.0\nhorizon = 10\n'
+                                      'error_control = "unit"\nbend = "none"\n'))
+    lab.series(cells, per_day=10)
+    with lab.init() as led:
+        led.append()
+        straight = led.fits("fade", view="straight").set_index("cell")
+        fits = led.fits("fade").set_index("cell")
+        alerts = led.watch("fade")
+    for cell, rows in cells.items():
+        x = np.array([r[0] for r in rows], dtype=float)
+        y = np.array([r[1] for r in rows])
+        # reference: statsmodels OLS of y on 1, x, x^2: the t value and p of the x^2 term
+        res = sm.OLS(y, np.column_stack([np.ones_like(x), x, x * x])).fit()
+        row = straight.loc[cell]
+        assert row["curvature"] == pytest.approx(res.params[2], rel=1e-7)
+        assert row["curvature_t"] == pytest.approx(res.tvalues[2], rel=1e-7)
+        assert row["curvature_p"] == pytest.approx(res.pvalues[2], rel=1e-6)
+    assert fits.loc["flat", "r2"] < 0.1
+    reasons = set(zip(alerts["cell"], alerts["reason"], strict=True))
+    assert ("curve", "not_straight") in reasons
+    assert not {r for r in reasons if r[0] in ("flat", "line")}  # the flat unit raises nothing
+
+
+def test_straight_units_raise_about_no_not_straight(fleet: Path) -> None:
+    # the 240-unit fleet above: 234 straight units; per unit at the fit's alpha 0.01 about 2
+    # false alarms (binomial band, scipy), together about none
+    from scipy import stats
+
+    with Ledger.open(fleet, read_only=True) as led:
+        fdr = led.watch("fade")
+        unit = led.watch("perunit")
+    lo, hi = stats.binom.ppf([0.0005, 0.9995], UNITS - len(CHANGED), 0.01)
+    unit_hits = set(unit.loc[unit["reason"] == "not_straight", "cell"]) - set(CHANGED)
+    assert lo <= len(unit_hits) <= hi
+    assert len(set(fdr.loc[fdr["reason"] == "not_straight", "cell"]) - set(CHANGED)) <= 1
+    assert "low_r2" not in set(fdr["reason"])  # min_r2 is unset

@@ -26,8 +26,8 @@
 --                   outlier_p. With error_control 'fdr' (the default) the groups' p-values are
 --                   judged together (Benjamini-Hochberg, below) and the rows flagged are those
 --                   whose outlier_p is at most the step-up cut alpha k / m; with 'unit' each
---                   group on its own (outlier_p < alpha_outliers). The detail gives the raw p and, with
---                   'fdr', the adjusted one and the number of groups tested.
+--                   group on its own (outlier_p < alpha_outliers). The detail gives the raw p
+--                   and, with 'fdr', the adjusted one and the number of groups tested.
 --   slope_changed   only when the fit has a change view (a window or window_x): the latest
 --                   window's slope differs from the slope of all earlier data, difference_p
 --                   judged at alpha_change as the outlier p-values are (raw and adjusted p in
