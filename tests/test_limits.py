@@ -411,3 +411,44 @@ def test_straight_units_raise_about_no_not_straight(fleet: Path) -> None:
     assert lo <= len(unit_hits) <= hi
     assert len(set(fdr.loc[fdr["reason"] == "not_straight", "cell"]) - set(CHANGED)) <= 1
     assert "low_r2" not in set(fdr["reason"])  # min_r2 is unset
+
+
+# --- rounded data -------------------------------------------------------------------------------
+
+
+def test_resolution_floors_the_residual_sd(tmp_path: Path) -> None:
+    spec = SPEC.replace('format = "csv"', 'format = "csv"\nresolution = { capacity_ah = 0.01 }')
+    rng = np.random.default_rng(7)
+    cells = {
+        # values rounded to 2 decimals that happen to lie on a line
+        "rounded": [(x, round(3.0 - 0.01 * x, 2)) for x in range(20)],
+        # noise well above the rounding: the floor changes nothing
+        "noisy": [(x, round(3.0 - 0.01 * x + float(rng.normal(0, 0.05)), 2)) for x in range(20)],
+    }
+    lab = Lab(tmp_path / "lab", spec)
+    lab.series(cells, per_day=5)
+    with lab.init() as led:
+        led.append()
+        fits = led.fits("fade").set_index("cell")
+    floor = 0.01 / np.sqrt(12)  # Sheppard's correction: the sd of a uniform rounding error
+    row = fits.loc["rounded"]
+    assert row["status"] == "ok"
+    assert row["resid_sd"] == pytest.approx(floor, rel=1e-12)
+    x = np.arange(20.0)
+    # numpy: the slope's standard error with that residual sd, s / sqrt(sxx)
+    assert row["slope_se"] == pytest.approx(floor / np.sqrt(((x - x.mean()) ** 2).sum()),
+                                            rel=1e-10)
+    assert row["slope_lo"] < row["slope"] < row["slope_hi"]
+    # reference: statsmodels OLS, the residual sd sqrt(scale) of the noisy cell
+    res = _ols(x, np.array([y for _, y in cells["noisy"]]))
+    assert res.scale > floor ** 2
+    assert fits.loc["noisy", "resid_sd"] == pytest.approx(np.sqrt(res.scale), rel=1e-9)
+
+
+def test_spec_refuses_a_bad_resolution() -> None:
+    for bad, words in (("{ capacity = 0.01 }", "not a declared column"),
+                       ("{ capacity_ah = 0 }", "must be a positive number"),
+                       ("0.01", "must be a table")):
+        with pytest.raises(SpecError) as err:
+            parse(SPEC.replace('format = "csv"', f'format = "csv"\nresolution = {bad}'))
+        assert words in str(err.value)

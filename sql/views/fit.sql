@@ -24,6 +24,12 @@
 --                   r2 = r2_adj = 1, intervals have zero width, slope_t and slope_p are NULL.
 --   ok              every statistic is defined.
 --
+-- Rounded data. When the spec gives y a resolution h ([source] resolution, the step its values
+-- are recorded to), the residual sd is never taken below h / sqrt(12), the standard deviation of
+-- the rounding error (Sheppard's correction, common practice): rss is at least df h^2 / 12, and
+-- a group that would be a perfect_fit is 'ok', with intervals of non-zero width. r2 and the
+-- line itself are the data's.
+--
 -- Numerics. The sums come from the moments view of the same fit (moments.sql: count, means,
 -- ranges, the centred sums sxx and sxy and the residual sum of squares rss of the least-squares
 -- line, each kept accurate however strong or weak the fit, and a bound rss_noise on the rounding
@@ -90,7 +96,12 @@ quantiles AS MATERIALIZED (
 classified AS (
     SELECT
         *,
-        __line__.stage AS stage
+        -- a line through rounded values is not perfect: its residual sd has a floor (below)
+        CASE
+            WHEN __line__.stage = 'perfect_fit' AND __y_resolution_or_null__ IS NOT NULL
+                THEN 'ok'
+            ELSE __line__.stage
+        END AS stage
     FROM spread
 ),
 estimates AS (
@@ -103,7 +114,9 @@ estimates AS (
         __line__.fit_slope AS slope,
         __line__.fit_intercept AS intercept,
         CASE
-            WHEN stage = 'ok' THEN rss_ls
+            WHEN stage = 'ok' THEN greatest(rss_ls, coalesce(__line__.df
+                * CAST(__y_resolution_or_null__ AS DOUBLE) * CAST(__y_resolution_or_null__ AS DOUBLE)
+                / 12, 0))
             WHEN stage IN (__line__.no_spread, 'perfect_fit') THEN 0.0
         END AS rss,
         CASE

@@ -23,6 +23,7 @@
 --   trend_t, trend_p
 --                   (y - y_before) / that standard error, and its two-sided Student t p-value
 --                   with n_a - 2 degrees of freedom
+--                   (s_a at least resolution / sqrt(12) when y has a resolution, as in fit.sql)
 --   outside         trend_p < alpha_trend: the reading lies outside the interval
 --   note            NULL, or why there is no interval: 'fewer than 3 earlier readings',
 --                   'earlier x without spread'
@@ -90,7 +91,8 @@ lines AS MATERIALIZED (
         CASE WHEN n_a >= 3 AND sxx_a > 0 THEN sxy_a / sxx_a END AS slope_a,
         CASE
             WHEN n_a >= 3 AND sxx_a > 0
-                THEN sqrt(greatest(syy_a - sxy_a * sxy_a / sxx_a, 0) / (n_a - 2))
+                THEN greatest(sqrt(greatest(syy_a - sxy_a * sxy_a / sxx_a, 0) / (n_a - 2)),
+                    coalesce(CAST(__y_resolution_or_null__ AS DOUBLE) / sqrt(12), 0))
         END AS s_a
     FROM downdated
 ),

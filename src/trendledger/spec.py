@@ -131,6 +131,9 @@ class Source:
     column_missing: dict[str, tuple[str, ...]] = field(default_factory=dict)
     #: folders outside the spec's folder that files may really live in (through links)
     allow: tuple[str, ...] = ()
+    #: the step each column's values are recorded to (0.01 for two decimals): a fit's residual
+    #: standard deviation is never taken below resolution / sqrt(12), the rounding noise
+    resolution: dict[str, float] = field(default_factory=dict)
 
     def derived(self) -> dict[str, str]:
         """Columns the store adds for censored columns: which side, and the limit."""
@@ -263,7 +266,7 @@ def _number(raw: dict[str, Any], key: str, where: str, path: str | None) -> floa
 def _parse_source(doc: dict[str, Any], path: str | None) -> Source:
     raw = _table(doc, "source", path)
     _unknown_keys(raw, {"files", "format", "columns", "fields", "delimiter", "missing",
-                        "decimal", "key", "timezone", "allow"}, "[source]", path)
+                        "decimal", "key", "timezone", "allow", "resolution"}, "[source]", path)
     files = raw.get("files")
     if not isinstance(files, str) or not files.strip():
         raise SpecError("[source] files: give a path template such as \"in/{day}/{unit}.csv\"",
@@ -373,7 +376,8 @@ def _parse_source(doc: dict[str, Any], path: str | None) -> Source:
     return Source(files=files, format=fmt, columns=columns, fields=fields, delimiter=delimiter,
                   headers=headers, missing=missing, decimal=decimal, key=key,
                   timezone=_zone(raw.get("timezone", "UTC"), path), censored=censored,
-                  column_missing=column_missing, allow=_parse_allow(raw.get("allow", []), path))
+                  column_missing=column_missing, allow=_parse_allow(raw.get("allow", []), path),
+                  resolution=_resolution(raw.get("resolution", {}), columns, path))
 
 
 def _zone(value: Any, path: str | None) -> str:
@@ -433,6 +437,23 @@ def _parse_allow(raw: Any, path: str | None) -> tuple[str, ...]:
             raise SpecError("[source] allow: the whole file system (\"/\") cannot be allowed",
                             file=path, hint="name the folder the instrument files are in")
     return tuple(raw)
+
+
+def _resolution(raw: Any, columns: dict[str, str], path: str | None) -> dict[str, float]:
+    """[source] resolution: the recorded step of numeric columns, e.g. { capacity_ah = 0.01 }."""
+    if not isinstance(raw, dict):
+        raise SpecError("[source] resolution must be a table of column = step, e.g. "
+                        "resolution = { capacity_ah = 0.01 }", file=path)
+    out: dict[str, float] = {}
+    for name, step in raw.items():
+        if name not in columns:
+            raise SpecError(f"[source] resolution: {name!r} is not a declared column", file=path,
+                            hint=did_you_mean(name, list(columns)))
+        if isinstance(step, bool) or not isinstance(step, int | float) or not step > 0:
+            raise SpecError(f"[source] resolution: {name} must be a positive number, the step "
+                            "its values are recorded to (e.g. 0.01)", file=path)
+        out[name] = float(step)
+    return out
 
 
 def _guess_format(files: str) -> str:

@@ -78,6 +78,8 @@ def fit_values(spec: Spec, fit: Fit) -> dict[str, Any]:
         "upper_fraction": fit.upper.fraction if fit.upper else None,
         "extrapolation_cap": fit.extrapolation_cap,
         "min_r2": fit.min_r2,
+        # fit.sql, trend.sql: the recorded step of y (Sheppard's floor on the residual sd)
+        "y_resolution": spec.source.resolution.get(fit.y),
         # fleet_units.sql: a unit is compared with its fleet when it follows a line, r2 at
         # least min_r2 (0.9 when the fit leaves min_r2 unset)
         "fleet_min_r2": fit.min_r2 if fit.min_r2 is not None else 0.9,
@@ -104,6 +106,9 @@ def fit_values(spec: Spec, fit: Fit) -> dict[str, Any]:
     }
     for kind, suffix, _ in KINDS:
         values[f"{kind}_view"] = fit.view + suffix
+    # fit.sql reads y's resolution as SQL NULL when it has none, for the stored statistics
+    # too (moments.py renders it with these values; views.install adds the other _or_null)
+    values["y_resolution_or_null"] = values["y_resolution"]
     values["moments_table"] = f"tl_moments_{fit.name}"  # moments.py: the stored sums
     values["fit_table"] = f"tl_fit_{fit.name}"  # moments.py: the stored statistics
     return values
