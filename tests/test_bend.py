@@ -522,7 +522,7 @@ def test_demo_bent_alert_names_exactly_the_knee_cells(demo_store: Path) -> None:
     bent = alerts[alerts["reason"] == "bent"].set_index("cell")
     # demo_data.expected()["knee"]: the planted knees, and nothing else bends at alpha 0.01
     assert set(bent.index) == set(EXPECTED["knee"])
-    assert (bent["severity"] == 7).all()
+    assert (bent["severity"] == 8).all()
     for cell, detail in bent["detail"].items():
         knee = EXPECTED["knee"][cell]["first_cycle_after"] - 1
         assert detail.startswith("the line bent at x = "), detail

@@ -452,3 +452,39 @@ def test_spec_refuses_a_bad_resolution() -> None:
         with pytest.raises(SpecError) as err:
             parse(SPEC.replace('format = "csv"', f'format = "csv"\nresolution = {bad}'))
         assert words in str(err.value)
+
+
+# --- data order and silent units ----------------------------------------------------------------
+
+
+def test_x_went_back_and_latest_x_in_time(tmp_path: Path) -> None:
+    lab = Lab(tmp_path / "lab", _spec("silent_after = 2\n"))
+
+    def day(name: str, cells: dict[str, range]) -> None:
+        # a straight line with a small alternating wobble: nothing else to find in it
+        lab.day(name, {c: [(x, 3.0 - 0.01 * x + 0.002 * (-1) ** x) for x in xs]
+                       for c, xs in cells.items()})
+
+    day("2026-03-02", {"reset": range(0, 10), "steady": range(0, 10), "quiet": range(0, 10)})
+    with lab.init() as led:
+        led.append()
+    day("2026-03-03", {"reset": range(10, 20), "steady": range(10, 20)})
+    with lab.open() as led:
+        led.append()
+    # the counter of 'reset' starts again from 0 on the third day
+    day("2026-03-04", {"reset": range(0, 4), "steady": range(20, 24)})
+    with lab.open() as led:
+        led.append()
+        alerts = led.watch("fade")
+    reasons = {(c, r): d for c, r, d in zip(alerts["cell"], alerts["reason"], alerts["detail"],
+                                             strict=True)}
+    assert reasons[("reset", "x_went_back")] == (
+        "x went back 1 time(s) from one reading to the next in time, e.g. from 19 to 0 "
+        "(a counter reset?)")
+    latest = dict(zip(alerts["cell"], alerts["latest_x"], strict=True))
+    assert latest["reset"] == 3.0  # the latest reading's x, not the largest (19)
+    # quiet sent nothing in the last two batches that brought readings to the fit
+    assert reasons[("quiet", "silent")].startswith("no readings in the last 2 batch(es)")
+    assert not [(c, r, d) for (c, r), d in reasons.items() if c == "steady"], reasons
+    # the silent unit, the most severe, comes first; then the counter reset
+    assert list(alerts["cell"])[:2] == ["quiet", "reset"]

@@ -311,9 +311,9 @@ def test_failing_follows_the_severity_order() -> None:
     assert failing(frame) and failing(frame, "low_r2") and failing(frame, "outliers")
     assert not failing(frame, "slope_changed") and not failing(frame, "crossing_soon")
     assert not failing(frame.iloc[:0])
-    assert SEVERITY == ("too_few_points", "low_r2", "not_straight", "outliers", "unlike_fleet",
-                        "slope_changed", "bent", "out_of_trend", "crossing_soon",
-                        "out_of_limits")
+    assert SEVERITY == ("too_few_points", "x_went_back", "low_r2", "not_straight", "outliers",
+                        "unlike_fleet", "slope_changed", "bent", "out_of_trend", "silent",
+                        "crossing_soon", "out_of_limits")
 
 
 def test_duckdb_cli_reads_the_alerts_and_the_break_macro(demo_store: Path,

@@ -1,21 +1,28 @@
--- What needs a look today: one row per group and reason (too_few_points, low_r2, not_straight,
--- outliers, unlike_fleet, slope_changed, bent, out_of_trend, crossing_soon, out_of_limits), with
--- a short detail and the group's latest x and date.
+-- What needs a look today: one row per group and reason (too_few_points, x_went_back, low_r2,
+-- not_straight, outliers, unlike_fleet, slope_changed, bent, out_of_trend, silent,
+-- crossing_soon, out_of_limits), with a short detail and the group's latest x and date.
 
 -- Columns:
 --   fit_name        the fit's name (so the alerts of several fits can be stacked)
 --   unit_label      the group values as text joined by ' / ' (a NULL value written NULL)
 --   group columns   as in the fit view
 --   reason          one of the words below
---   severity        1 too_few_points, 2 low_r2, 3 not_straight, 4 outliers, 5 unlike_fleet, 6
---                   slope_changed, 7 bent, 8 out_of_trend, 9 crossing_soon, 10 out_of_limits (the
---                   order `trendledger watch --fail-on` uses)
+--   severity        1 too_few_points, 2 x_went_back, 3 low_r2, 4 not_straight, 5 outliers, 6
+--                   unlike_fleet, 7 slope_changed, 8 bent, 9 out_of_trend, 10 silent, 11
+--                   crossing_soon, 12 out_of_limits (the order `trendledger watch --fail-on` uses)
 --   detail          the numbers behind the reason, in words, e.g. 'r2 0.773 < 0.9'
---   latest_x        the group's largest x (x_max of the fit view)
+--   latest_x        the x of the group's latest reading in time (by the date field when the
+--                   spec has one, then by file, then by its order in the file); not the
+--                   largest x, which differs after a counter reset
 --   latest_date     the group's latest value of the spec's first date or timestamp field, NULL
 --                   when the spec has none
 -- Reasons:
 --   too_few_points  the fit's status is too_few_points (fewer than 3 pairs)
+--   x_went_back     x decreases from one reading to the next in time (a counter reset): the
+--                   detail counts the falls and shows the largest
+--   silent          only when the fit sets silent_after = N: the group has no rows in the
+--                   last N batches that brought rows to its fleet (the fit's fleet columns;
+--                   without them, the fit), while those batches brought rows to other units
 --   low_r2          only when the fit sets min_r2 (unset by default): the fit's r2 is below it.
 --                   A flat trend inside its noise has an r2 near 0 and nothing wrong with it.
 --   not_straight    the readings do not follow a straight line: the quadratic term's t test of
@@ -79,10 +86,53 @@ WITH groups AS MATERIALIZED (
     FROM __fit_view__ AS f
     JOIN __moments_view__ AS m ON ROW(m.__group__) IS NOT DISTINCT FROM ROW(f.__group__)
 ),
+in_time AS MATERIALIZED (
+    -- the readings in the order they were taken: by the date field (when the spec has one),
+    -- then by file (arrival), then by their order in the file; with the x before each
+    SELECT
+        s.__group__,
+        CAST(s.__x__ AS DOUBLE) AS tl_x,
+        s.__window_field_or_null__ AS tl_date,
+        f.batch_id AS tl_batch,
+        lag(CAST(s.__x__ AS DOUBLE)) OVER (PARTITION BY s.__group__
+            ORDER BY s.__window_field_or_null__, s.file_id, s.rowid) AS tl_x_before,
+        row_number() OVER (PARTITION BY s.__group__
+            ORDER BY s.__window_field_or_null__ DESC, s.file_id DESC, s.rowid DESC) AS tl_last
+    FROM __source__ AS s
+    JOIN ingest_files AS f ON f.file_id = s.file_id
+    WHERE s.__x__ IS NOT NULL
+),
 dates AS MATERIALIZED (
-    SELECT __group__, max(__window_field_or_null__) AS latest_date
-    FROM __source__
+    SELECT
+        __group__,
+        max(tl_date) AS latest_date,
+        -- the x of the latest reading in time (not the largest x)
+        any_value(tl_x) FILTER (WHERE tl_last = 1) AS latest_x,
+        max(tl_batch) AS tl_last_batch
+    FROM in_time
     GROUP BY __group__
+),
+went_back AS (
+    SELECT
+        __group__,
+        count(*) AS tl_back,
+        max(tl_x_before) AS tl_from,
+        arg_max(tl_x, tl_x_before) AS tl_to
+    FROM in_time
+    WHERE tl_x < tl_x_before
+    GROUP BY __group__
+),
+batches AS (
+    -- the batches that brought rows to the fit, per fleet (the fleet columns; none: the fit)
+    SELECT DISTINCT __fleet__, tl_batch FROM in_time
+),
+silent AS (
+    SELECT d.__group__, any_value(d.tl_last_batch) AS tl_last_batch, count(*) AS tl_missed
+    FROM dates AS d
+    JOIN batches AS b ON ROW(b.__fleet__, 1) IS NOT DISTINCT FROM ROW(d.__fleet__, 1)
+        AND b.tl_batch > d.tl_last_batch
+    GROUP BY d.__group__
+    HAVING count(*) >= __silent_after_or_null__
 ),
 tested AS MATERIALIZED (
     -- each test's p-value per group: the window slope against the earlier slope, the
@@ -160,11 +210,21 @@ reasons AS (
     FROM groups
     WHERE status = 'too_few_points'
     UNION ALL
-    SELECT __group__, 'low_r2', 2, format('r2 {:.3g} < {:g}', r2, __min_r2_or_null__)
+    SELECT __group__, 'x_went_back', 2,
+        format('x went back {} time(s) from one reading to the next in time, e.g. from {:g} '
+            || 'to {:g} (a counter reset?)', tl_back, tl_from, tl_to)
+    FROM went_back
+    UNION ALL
+    SELECT __group__, 'silent', 10,
+        format('no readings in the last {} batch(es) that brought its fleet readings (its '
+            || 'latest: batch {})', tl_missed, tl_last_batch)
+    FROM silent
+    UNION ALL
+    SELECT __group__, 'low_r2', 3, format('r2 {:.3g} < {:g}', r2, __min_r2_or_null__)
     FROM groups
     WHERE r2 < __min_r2_or_null__
     UNION ALL
-    SELECT s.__group__, 'not_straight', 3,
+    SELECT s.__group__, 'not_straight', 4,
         format('the readings curve: quadratic term {:.3g} (t {:.3g}), p {:.2g}{} < {:g}',
             s.curvature, s.curvature_t, s.curvature_p,
             CASE
@@ -178,7 +238,7 @@ reasons AS (
         AND j.tl_test = 'not_straight'
     WHERE j.tl_hit
     UNION ALL
-    SELECT __group__, 'outliers', 4,
+    SELECT __group__, 'outliers', 5,
         format('{} reading(s) flagged (Bonferroni, alpha {:g}) at x = {}{}; p {:.2g}{}',
             outliers, __alpha_outliers__,
             array_to_string(list_transform(list_slice(flagged_x, 1, 5),
@@ -192,7 +252,7 @@ reasons AS (
             END)
     FROM flagged
     UNION ALL
-    SELECT c.__group__, 'slope_changed', 6,
+    SELECT c.__group__, 'slope_changed', 7,
         format('slope {:.3g} in the window from {} against {:.3g} before: p {:.2g}{} < {:g}',
             c.slope_recent, c.window_start, c.slope_before, c.difference_p,
             CASE
@@ -206,7 +266,7 @@ reasons AS (
         AND j.tl_test = 'slope_changed'
     WHERE j.tl_hit
     UNION ALL
-    SELECT t.__group__, 'out_of_trend', 8,
+    SELECT t.__group__, 'out_of_trend', 9,
         format('latest reading(s) at x = {} outside the {:g} % prediction interval of the '
             || 'line through the {} earlier reading(s): p {:.2g}{} < {:g}',
             array_to_string(list_transform(list_sort(list(t.x)),
@@ -225,21 +285,21 @@ reasons AS (
         ELSE t.trend_p * j.tl_k < j.tl_alpha END
     GROUP BY t.__group__
     UNION ALL
-    SELECT __group__, 'bent', 7,
+    SELECT __group__, 'bent', 8,
         format('the line bent at x = {:.4g}: slope {:.3g} before, {:.3g} after, p {}', bend_x,
             slope_before, slope_after,
             CASE WHEN bend_p = 0 THEN '< 1e-300' ELSE format('{:.2g}', bend_p) END)
     FROM __bend_view_if_any__
     WHERE bends > 0
     UNION ALL
-    SELECT __group__, 'out_of_limits', 10,
+    SELECT __group__, 'out_of_limits', 12,
         format('the line is at {:.4g} at the latest x {:g}, {} the {} limit {:.4g}',
             line_at_latest, latest_x, CASE WHEN side = 'lower' THEN 'below' ELSE 'above' END,
             side, limit_value)
     FROM __crossing_view_if_any__
     WHERE past
     UNION ALL
-    SELECT __group__, 'crossing_soon', 9,
+    SELECT __group__, 'crossing_soon', 11,
         format('the one-sided 95% bound {} the {} limit {:.4g} at x = {:.4g}{}{}{}{}',
             CASE WHEN cross_bound <= latest_x THEN 'met' ELSE 'meets' END, side, limit_value,
             cross_bound,
@@ -262,7 +322,7 @@ reasons AS (
     -- judged on the conservative bound; a side already past is out_of_limits instead
     WHERE NOT past AND cross_bound <= latest_x + CAST(__horizon_or_null__ AS DOUBLE)
     UNION ALL
-    SELECT __group__, 'unlike_fleet', 5,
+    SELECT __group__, 'unlike_fleet', 6,
         format('slope {:.3g} against {:.3g} for its {} siblings (z {:.3g}, p {:.2g} < {:g} / {})',
             slope, fleet_slope, units - 1, slope_z, slope_z_p, __alpha__, units)
     FROM __fleet_units_view__
@@ -275,7 +335,7 @@ SELECT
     r.reason,
     CAST(r.severity AS INTEGER) AS severity,
     r.detail,
-    g.latest_x,
+    d.latest_x,
     d.latest_date
 FROM reasons AS r
 JOIN groups AS g ON ROW(g.__group__) IS NOT DISTINCT FROM ROW(r.__group__)

@@ -339,7 +339,7 @@ def fits(
 @app.command()
 def watch(
     name: Annotated[str | None, typer.Argument(help="Fit name (default: every fit)")] = None,
-    fail_on: Annotated[str | None, typer.Option("--fail-on", help="Exit 1 on an alert at or above this reason: too_few_points < low_r2 < not_straight < outliers < unlike_fleet < slope_changed < bent < out_of_trend < crossing_soon < out_of_limits (default: any alert)")] = None,
+    fail_on: Annotated[str | None, typer.Option("--fail-on", help="Exit 1 on an alert at or above this reason: too_few_points < x_went_back < low_r2 < not_straight < outliers < unlike_fleet < slope_changed < bent < out_of_trend < silent < crossing_soon < out_of_limits (default: any alert)")] = None,
     fmt: FormatOpt = "table",
     store: StoreOpt = None,
     wait: WaitOpt = DEFAULT_WAIT,

@@ -98,6 +98,8 @@ class Fit:
     #: "fdr": each test's p-values are judged across the units of the fit (Benjamini-Hochberg);
     #: "unit": each unit on its own
     error_control: str = "fdr"
+    #: raise `silent` for a unit with no rows in this many of its fleet's latest batches
+    silent_after: int | None = None
 
     @property
     def view(self) -> str:
@@ -469,7 +471,7 @@ FIT_KEYS = {
     "name", "group", "x", "y", "level", "through_origin", "limit", "horizon", "window",
     "window_x", "min_r2", "alpha", "fleet", "pool_alpha",
     "bend", "bend_min", "lower", "upper", "extrapolation_cap",
-    "alpha_change", "alpha_outliers", "alpha_trend", "error_control",
+    "alpha_change", "alpha_outliers", "alpha_trend", "error_control", "silent_after",
 }
 ERROR_CONTROLS = ("fdr", "unit")
 
@@ -590,6 +592,12 @@ def _alphas(raw: dict[str, Any], alpha: float, where: str, path: str | None) -> 
                         "units of the fit) or \"unit\" (each unit on its own)", file=path,
                         hint=did_you_mean(str(control), ERROR_CONTROLS))
     out["error_control"] = control
+    silent = raw.get("silent_after")
+    if silent is not None and (isinstance(silent, bool) or not isinstance(silent, int)
+                               or silent < 1):
+        raise SpecError(f"{where}: silent_after is a number of batches, a whole number of at "
+                        "least 1, e.g. 3", file=path)
+    out["silent_after"] = silent
     return out
 
 

@@ -87,6 +87,7 @@ def fit_values(spec: Spec, fit: Fit) -> dict[str, Any]:
         "alpha_change": fit.alpha_change,
         "alpha_outliers": fit.alpha_outliers,
         "alpha_trend": fit.alpha_trend,
+        "silent_after": fit.silent_after,
         # alerts.sql: 'fdr' (Benjamini-Hochberg across the fit's units) or 'unit'
         "error_control": Text(fit.error_control),
         # the fleet columns (possibly none: every unit is one fleet) and the poolability level

@@ -37,6 +37,7 @@ POOL_CAUTION = ("pooling units for a shelf life is a regulated decision: the fle
 #: The alerts views carry the same order as ``severity`` (1 = too_few_points).
 SEVERITY: tuple[str, ...] = (
     "too_few_points",
+    "x_went_back",
     "low_r2",
     "not_straight",
     "outliers",
@@ -44,6 +45,7 @@ SEVERITY: tuple[str, ...] = (
     "slope_changed",
     "bent",
     "out_of_trend",
+    "silent",
     "crossing_soon",
     "out_of_limits",
 )
@@ -64,9 +66,10 @@ def alerts(con: duckdb.DuckDBPyConnection, spec: Spec, name: str | None = None) 
 
     Columns: those of the alerts views, ``fit_name``, ``unit_label`` (the group values as
     text), the group columns, then
-    ``reason``, ``severity``, ``detail``, ``latest_x``, ``latest_date``. Units come newest
-    first (latest date, then latest x, descending), and within a unit the most severe
-    reason first. A fit without an alerts view contributes nothing.
+    ``reason``, ``severity``, ``detail``, ``latest_x``, ``latest_date``. Units come by their
+    most severe reason, then the one silent longest first (earliest latest date), then by
+    latest x, descending; within a unit the most severe reason first. A fit without an alerts
+    view contributes nothing.
     """
     fits = [spec.fit(name)] if name is not None else list(spec.fits)
     frames = []
@@ -81,16 +84,18 @@ def alerts(con: duckdb.DuckDBPyConnection, spec: Spec, name: str | None = None) 
     out = pd.concat(frames, ignore_index=True) if len(frames) > 1 else frames[0]
     if out.empty:
         return out
-    # newest unit first: the unit's latest date (when the spec has one), then its latest x
-    # (sort keys kept aside, never added as columns: a group column may take any free name)
+    # the most severe unit first, then the one silent longest (its latest date, when the spec
+    # has one), then its latest x (sort keys kept aside, never added as columns: a group
+    # column may take any free name)
     dates = pd.to_datetime(out["latest_date"], errors="coerce")
     key = [out["fit_name"], out["unit_label"]]
+    unit_worst = out["severity"].groupby(key, sort=False).transform("max")
     unit_date = dates.groupby(key, sort=False).transform("max")
     unit_x = out["latest_x"].groupby(key, sort=False).transform("max")
-    order = pd.DataFrame({"d": unit_date, "x": unit_x, "f": out["fit_name"],
+    order = pd.DataFrame({"w": unit_worst, "d": unit_date, "x": unit_x, "f": out["fit_name"],
                           "u": out["unit_label"], "s": out["severity"]})
-    order = order.sort_values(["d", "x", "f", "u", "s"],
-                              ascending=[False, False, True, True, False],
+    order = order.sort_values(["w", "d", "x", "f", "u", "s"],
+                              ascending=[False, True, False, True, True, False],
                               na_position="last", kind="stable")
     return out.loc[order.index].reset_index(drop=True)
 
