@@ -183,8 +183,8 @@ def test_limit_relative_to_the_first_reading(tmp_path: Path) -> None:
         assert row["limit_value"] == pytest.approx(0.8 * start, rel=1e-12)
         res = _ols(x, y)
         # reference: scipy.optimize.brentq on statsmodels get_prediction(...).conf_int(0.10)
-        bound = optimize.brentq(lambda at: _edge(res, at, "lower") - 0.8 * start, 39, 1000,
-                                xtol=1e-10)
+        bound = optimize.brentq(lambda at, r=res, s=start: _edge(r, at, "lower") - 0.8 * s,
+                                39, 1000, xtol=1e-10)
         assert row["cross_bound"] == pytest.approx(bound, rel=1e-7)
 
 

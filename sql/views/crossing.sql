@@ -112,16 +112,16 @@ groups AS (
 setup AS (
     SELECT
         g.*,
-        __cross__.cx AS cx,
-        __cross__.cy AS cy,
-        __cross__.cse AS cse
+        __cross__.tl_cx AS tl_cx,
+        __cross__.tl_cy AS tl_cy,
+        __cross__.tl_cse AS tl_cse
     FROM groups AS g
 ),
 mirrored AS (
     SELECT
         *,
         -- a ceiling is a floor seen upside down
-        CASE WHEN side = 'lower' THEN cy - limit_value ELSE limit_value - cy END AS tl_d,
+        CASE WHEN side = 'lower' THEN tl_cy - limit_value ELSE limit_value - tl_cy END AS tl_d,
         CASE WHEN side = 'lower' THEN slope ELSE -slope END AS tl_s,
         CASE
             WHEN status NOT IN ('ok', 'perfect_fit', __line__.no_spread) OR slope IS NULL
@@ -140,22 +140,22 @@ quadratic AS (
 roots AS (
     SELECT
         *,
-        slope_se * slope_se * tl_d * tl_d + cse * cse * tl_a_level AS tl_disc_level,
-        slope_se * slope_se * tl_d * tl_d + cse * cse * tl_a_bound AS tl_disc_bound,
-        cy + slope * (latest_x - cx) AS line_at_latest
+        slope_se * slope_se * tl_d * tl_d + tl_cse * tl_cse * tl_a_level AS tl_disc_level,
+        slope_se * slope_se * tl_d * tl_d + tl_cse * tl_cse * tl_a_bound AS tl_disc_bound,
+        tl_cy + slope * (latest_x - tl_cx) AS line_at_latest
     FROM quadratic
 ),
 ends AS (
     SELECT
         *,
-        CASE WHEN no_line IS NULL AND tl_s < 0 THEN cx - tl_d / tl_s END AS tl_x,
+        CASE WHEN no_line IS NULL AND tl_s < 0 THEN tl_cx - tl_d / tl_s END AS tl_x,
         CASE
             WHEN no_line IS NULL AND tl_s < 0 AND tl_a_level > 0
-                THEN cx + (-tl_s * tl_d - t_level * sqrt(tl_disc_level)) / tl_a_level
+                THEN tl_cx + (-tl_s * tl_d - t_level * sqrt(tl_disc_level)) / tl_a_level
         END AS tl_lo,
         CASE
             WHEN no_line IS NULL AND tl_s < 0 AND tl_a_level > 0
-                THEN cx + (-tl_s * tl_d + t_level * sqrt(tl_disc_level)) / tl_a_level
+                THEN tl_cx + (-tl_s * tl_d + t_level * sqrt(tl_disc_level)) / tl_a_level
         END AS tl_hi,
         CASE
             WHEN no_line IS NULL AND tl_s < t_bound * slope_se AND tl_a_bound <> 0
@@ -168,7 +168,7 @@ judged AS (
     SELECT
         *,
         CASE
-            WHEN tl_a_bound > 0 OR tl_d + tl_s * tl_u_bound >= 0 THEN cx + tl_u_bound
+            WHEN tl_a_bound > 0 OR tl_d + tl_s * tl_u_bound >= 0 THEN tl_cx + tl_u_bound
         END AS tl_bound,
         CASE
             WHEN extrapolation_cap IS NULL OR latest_x - tl_first_x <= extrapolation_cap

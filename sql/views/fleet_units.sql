@@ -23,8 +23,8 @@
 --   slope_shrunk    empirical-Bayes slope: the fleet's random-effects mean m plus
 --                   tau^2 / (tau^2 + slope_se^2) (slope - m), with the whole fleet's tau
 --   unlike          slope_z_p below the fit's alpha divided by units (Bonferroni over the fleet)
---                   and the unit's r2 at least the fit's min_r2 (0.9 unless set): a unit that does not follow a
---                   line is reported as low_r2, and its one slope says little about it
+--                   and the unit's r2 at least the fit's min_r2 (0.9 unless set): a unit that
+--                   does not follow a line has a slope that says little about it
 --   note            why values are missing: 'not in the fleet: <fit status>', 'fewer than 3
 --                   units in the fleet' (no leave-one-out spread)
 --

@@ -44,19 +44,19 @@ latest AS MATERIALIZED (
     SELECT * FROM fit_rows WHERE batch_id = (SELECT max(batch_id) FROM fit_rows)
 ),
 batch_means AS (
-    SELECT __group__, count(*) AS n_b, avg(x) AS xm_b, avg(y) AS ym_b
+    SELECT __group__, count(*) AS tl_n_b, avg(x) AS tl_xm_b, avg(y) AS tl_ym_b
     FROM latest
     GROUP BY __group__
 ),
 batch_sums AS MATERIALIZED (
     SELECT
         b.__group__,
-        any_value(b.n_b) AS n_b,
-        any_value(b.xm_b) AS xm_b,
-        any_value(b.ym_b) AS ym_b,
-        sum((l.x - b.xm_b) * (l.x - b.xm_b)) AS sxx_b,
-        sum((l.x - b.xm_b) * (l.y - b.ym_b)) AS sxy_b,
-        sum((l.y - b.ym_b) * (l.y - b.ym_b)) AS syy_b
+        any_value(b.tl_n_b) AS tl_n_b,
+        any_value(b.tl_xm_b) AS tl_xm_b,
+        any_value(b.tl_ym_b) AS tl_ym_b,
+        sum((l.x - b.tl_xm_b) * (l.x - b.tl_xm_b)) AS tl_sxx_b,
+        sum((l.x - b.tl_xm_b) * (l.y - b.tl_ym_b)) AS tl_sxy_b,
+        sum((l.y - b.tl_ym_b) * (l.y - b.tl_ym_b)) AS tl_syy_b
     FROM latest AS l
     JOIN batch_means AS b ON ROW(b.__group__) IS NOT DISTINCT FROM ROW(l.__group__)
     GROUP BY b.__group__
@@ -64,41 +64,49 @@ batch_sums AS MATERIALIZED (
 earlier AS (
     SELECT
         b.__group__,
-        CAST(m.n - b.n_b AS BIGINT) AS n_a,
-        b.n_b,
+        CAST(m.n - b.tl_n_b AS BIGINT) AS tl_n_a,
+        b.tl_n_b,
         m.n,
-        CASE WHEN m.n > b.n_b THEN (m.n * m.x_mean - b.n_b * b.xm_b) / (m.n - b.n_b) END AS xm_a,
-        CASE WHEN m.n > b.n_b THEN (m.n * m.y_mean - b.n_b * b.ym_b) / (m.n - b.n_b) END AS ym_a,
-        m.sxx, m.sxy, m.syy, b.xm_b, b.ym_b, b.sxx_b, b.sxy_b, b.syy_b
+        CASE
+            WHEN m.n > b.tl_n_b THEN (m.n * m.x_mean - b.tl_n_b * b.tl_xm_b) / (m.n - b.tl_n_b)
+        END AS tl_xm_a,
+        CASE
+            WHEN m.n > b.tl_n_b THEN (m.n * m.y_mean - b.tl_n_b * b.tl_ym_b) / (m.n - b.tl_n_b)
+        END AS tl_ym_a,
+        m.sxx, m.sxy, m.syy, b.tl_xm_b, b.tl_ym_b, b.tl_sxx_b, b.tl_sxy_b, b.tl_syy_b
     FROM batch_sums AS b
     JOIN __moments_view__ AS m ON ROW(m.__group__) IS NOT DISTINCT FROM ROW(b.__group__)
 ),
 downdated AS (
     SELECT
         *,
-        greatest(sxx - sxx_b - n_a * n_b / n * (xm_b - xm_a) * (xm_b - xm_a), 0) AS sxx_a,
-        sxy - sxy_b - n_a * n_b / n * (xm_b - xm_a) * (ym_b - ym_a) AS sxy_a,
-        greatest(syy - syy_b - n_a * n_b / n * (ym_b - ym_a) * (ym_b - ym_a), 0) AS syy_a
+        greatest(sxx - tl_sxx_b
+            - tl_n_a * tl_n_b / n * (tl_xm_b - tl_xm_a) * (tl_xm_b - tl_xm_a), 0) AS tl_sxx_a,
+        sxy - tl_sxy_b
+            - tl_n_a * tl_n_b / n * (tl_xm_b - tl_xm_a) * (tl_ym_b - tl_ym_a) AS tl_sxy_a,
+        greatest(syy - tl_syy_b
+            - tl_n_a * tl_n_b / n * (tl_ym_b - tl_ym_a) * (tl_ym_b - tl_ym_a), 0) AS tl_syy_a
     FROM earlier
 ),
 lines AS MATERIALIZED (
     SELECT
         *,
         CASE
-            WHEN n_a < 3 THEN 'fewer than 3 earlier readings'
-            WHEN NOT sxx_a > 0 THEN 'earlier x without spread'
+            WHEN tl_n_a < 3 THEN 'fewer than 3 earlier readings'
+            WHEN NOT tl_sxx_a > 0 THEN 'earlier x without spread'
         END AS note,
-        CASE WHEN n_a >= 3 AND sxx_a > 0 THEN sxy_a / sxx_a END AS slope_a,
+        CASE WHEN tl_n_a >= 3 AND tl_sxx_a > 0 THEN tl_sxy_a / tl_sxx_a END AS tl_slope_a,
         CASE
-            WHEN n_a >= 3 AND sxx_a > 0
-                THEN greatest(sqrt(greatest(syy_a - sxy_a * sxy_a / sxx_a, 0) / (n_a - 2)),
+            WHEN tl_n_a >= 3 AND tl_sxx_a > 0
+                THEN greatest(
+                    sqrt(greatest(tl_syy_a - tl_sxy_a * tl_sxy_a / tl_sxx_a, 0) / (tl_n_a - 2)),
                     coalesce(CAST(__y_resolution_or_null__ AS DOUBLE) / sqrt(12), 0))
-        END AS s_a
+        END AS tl_s_a
     FROM downdated
 ),
 quantiles AS MATERIALIZED (
-    SELECT df, tl_t_crit(CAST(__alpha_trend__ AS DOUBLE) / 2, df) AS t_pred
-    FROM (SELECT DISTINCT n_a - 2 AS df FROM lines WHERE note IS NULL) AS sizes
+    SELECT df, tl_t_crit(CAST(__alpha_trend__ AS DOUBLE) / 2, df) AS tl_t_pred
+    FROM (SELECT DISTINCT tl_n_a - 2 AS df FROM lines WHERE note IS NULL) AS sizes
 ),
 predicted AS (
     SELECT
@@ -107,15 +115,16 @@ predicted AS (
         l.y,
         l.file_id,
         l.batch_id,
-        g.n_a AS n_before,
+        g.tl_n_a AS n_before,
         g.note,
-        g.ym_a + g.slope_a * (l.x - g.xm_a) AS y_before,
-        g.s_a * sqrt(1 + 1.0 / g.n_a + (l.x - g.xm_a) * (l.x - g.xm_a) / g.sxx_a) AS tl_se,
-        q.t_pred,
-        g.n_a - 2 AS tl_df
+        g.tl_ym_a + g.tl_slope_a * (l.x - g.tl_xm_a) AS y_before,
+        g.tl_s_a * sqrt(1 + 1.0 / g.tl_n_a
+            + (l.x - g.tl_xm_a) * (l.x - g.tl_xm_a) / g.tl_sxx_a) AS tl_se,
+        q.tl_t_pred,
+        g.tl_n_a - 2 AS tl_df
     FROM latest AS l
     JOIN lines AS g ON ROW(g.__group__) IS NOT DISTINCT FROM ROW(l.__group__)
-    LEFT JOIN quantiles AS q ON q.df = g.n_a - 2
+    LEFT JOIN quantiles AS q ON q.df = g.tl_n_a - 2
 ),
 tested AS (
     SELECT
@@ -131,8 +140,8 @@ SELECT
     batch_id,
     n_before,
     y_before,
-    y_before - t_pred * tl_se AS pred_lo,
-    y_before + t_pred * tl_se AS pred_hi,
+    y_before - tl_t_pred * tl_se AS pred_lo,
+    y_before + tl_t_pred * tl_se AS pred_hi,
     trend_t,
     CASE WHEN trend_t IS NOT NULL THEN tl_t_two_sided(trend_t, tl_df) END AS trend_p,
     CASE
