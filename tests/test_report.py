@@ -562,3 +562,26 @@ def test_plain_reasons() -> None:
     assert plain_reason("something_new") == "something new"
     # the label column takes the reserved prefix, which the spec refuses for user columns
     assert LABEL.startswith("tl_")
+
+
+def test_panel_note_never_covers_a_marker() -> None:
+    # falling data leave the upper right free, so the note went there; outliers put there
+    # (readings far above the line at the latest x) must push it elsewhere
+    # a crossing too far to draw is written in the note
+    p = _panel(limit=0.5, crossing=plots.Crossing(x=5000.0, lo=4000.0, hi=7000.0))
+    p.y[-6:] = 3.05
+    p.outlier[-6:] = True
+    drawn = plots.panels([p], x_title="cycle", y_title="capacity", level=0.95)
+    fig = drawn.figure
+    renderer = fig.canvas.get_renderer()
+    fig.canvas.draw()
+    ax = fig.axes[0]
+    from matplotlib.text import Text
+
+    note = by_gid(ax, "limit-note")[0]
+    box = Text.get_window_extent(note, renderer).extents
+    info = drawn.info["panels"]["u1"]
+    assert info["note_on_markers"] == 0 and len(info["marker_boxes"]) == p.x.size
+    for m in info["marker_boxes"]:
+        assert not overlap(box, m)
+    assert note.get_position() != (0.99, 0.97)  # moved from where it stood before

@@ -147,12 +147,20 @@ REASONS: dict[str, str] = {
     "outliers": "some readings lie far from the line (flagged by the outlier test)",
     "slope_changed": "the latest window's slope differs from the trend of all earlier data",
     "bent": "the line bent: the trend since the bend is the one that holds now",
-    "crossing_soon": "projected to reach the limit within the horizon, or already past it",
+    "crossing_soon": "the conservative (one-sided 95 %) bound of the line reaches a limit within "
+                     "the horizon, or already has",
+    "out_of_limits": "the line is past a limit at the latest x",
+    "out_of_trend": "the latest readings lie outside the prediction interval of the line "
+                    "through the earlier readings",
+    "not_straight": "the readings curve: a quadratic term is significant (the line is not "
+                    "straight)",
+    "x_went_back": "x decreased from one reading to the next in time (a counter reset?)",
+    "silent": "no readings in the latest batches while its fleet kept reporting",
     "unlike_fleet": "its slope is unlike the slopes of the other units of its fleet (z test "
                     "against their random-effects mean, Bonferroni over the fleet)",
 }
 #: Reasons whose detail is a projection: the alert table then carries the caution.
-PROJECTIONS = frozenset({"crossing_soon"})
+PROJECTIONS = frozenset({"crossing_soon", "out_of_limits"})
 #: For a reason this version does not know: (pattern in the code, plain words).
 REASON_GUESSES: tuple[tuple[str, str], ...] = (
     (r"r2|linear", REASONS["low_r2"]),
@@ -280,9 +288,23 @@ def _points(con: duckdb.DuckDBPyConnection, views: Views, labels: list[str]
 
 def _crossings(con: duckdb.DuckDBPyConnection, views: Views, labels: list[str]
                ) -> pd.DataFrame | None:
-    if views.fit.limit is None or not views.has("crossing"):
+    if not _has_limit(views.fit) or not views.has("crossing"):
         return None
     return _read(con, views.name("crossing"), views.fit.group, labels)
+
+
+def _has_limit(fit: Fit) -> bool:
+    return fit.limit is not None or fit.lower is not None or fit.upper is not None
+
+
+def _side_that_matters(rows: pd.DataFrame) -> pd.Series:
+    """Of a group's crossing rows (one per side), the side past its limit, else the side whose
+    bound meets its limit first, else the first."""
+    if "past" in rows and rows["past"].fillna(False).astype(bool).any():
+        return rows[rows["past"].fillna(False).astype(bool)].iloc[0]
+    if "cross_bound" in rows and rows["cross_bound"].notna().any():
+        return rows.loc[pd.to_numeric(rows["cross_bound"]).idxmin()]
+    return rows.iloc[0]
 
 
 def _changes(con: duckdb.DuckDBPyConnection, views: Views, labels: list[str]
@@ -699,13 +721,13 @@ def build(
             panels_sec.images.append((file, keep(file, drawn),
                                       f"{fit.y} against {fit.x} for "
                                       + ", ".join(p.name for p in chunk) + "."))
-        if fit.limit is not None:
+        if _has_limit(fit):
             panels_sec.lead.append(f'<div class="caution"><strong>Caution</strong>'
                                    f"{_esc(CAUTION)}</div>")
             if crossing is None:
                 panels_sec.notes.append(
-                    f"The store has no crossing view ({views.name('crossing')}): the limit "
-                    f"({fit.limit:g}) is drawn, no crossing is projected.")
+                    f"The store has no crossing view ({views.name('crossing')}): no limit is "
+                    "drawn and no crossing is projected.")
             else:
                 crossing = crossing.copy()
                 # beside the projection from the line that holds now, the whole history's
@@ -713,11 +735,14 @@ def build(
                 crossing["whole_cross_x"] = [
                     _whole_cross(fit, by_label.loc[g]) if g in by_label.index else None
                     for g in crossing[LABEL]]
-                cols = [*fit.group, *(c for c in ("cross_x", "cross_lo", "cross_hi",
-                                                   "cross_bound", "basis", "from_x",
-                                                   "whole_cross_x", "note") if c in crossing)]
+                cols = [*fit.group, *(c for c in ("side", "limit_value", "cross_x", "cross_lo",
+                                                   "cross_hi", "cross_bound", "extrapolation_end",
+                                                   "basis", "from_x", "whole_cross_x", "note")
+                                      if c in crossing)]
+                what = (f"the limit {fit.limit:g}" if fit.limit is not None
+                        else "the limits, per side")
                 panels_sec.parts.append(
-                    f"<h3>Projected crossing of the limit {fit.limit:g}</h3>"
+                    f"<h3>Projected crossing of {what}</h3>"
                     '<div class="scroll">' + table(crossing, cols, table_id="crossing")
                     + "</div>")
     sections.append(panels_sec)
@@ -890,10 +915,13 @@ def _panel_data(fit: Fit, fits: pd.DataFrame, points: pd.DataFrame,
     # The fit's own t quantile, recovered from its interval: slope_hi = slope + t * slope_se.
     t = (hi - slope) / se if slope is not None and se and hi is not None else None
     cross = None
+    limit = fit.limit
     if crossing is not None:
         c = crossing[crossing[LABEL] == name]
         if len(c):
-            r = c.iloc[0]
+            # the side that matters is drawn: its limit (a relative limit is the unit's own)
+            r = _side_that_matters(c)
+            limit = _num(r.get("limit_value")) if "limit_value" in r else limit
             cross = Crossing(_num(r.get("cross_x")), _num(r.get("cross_lo")),
                              _num(r.get("cross_hi")), _num(r.get("cross_bound")),
                              None if _is_missing(r.get("note")) else str(r["note"]))
@@ -901,7 +929,7 @@ def _panel_data(fit: Fit, fits: pd.DataFrame, points: pd.DataFrame,
         name=name, x=x, y=y, outlier=mine["_outlier"].to_numpy(bool), slope=slope,
         intercept=_num(row.get("intercept")), resid_sd=_num(row.get("resid_sd")),
         n=int(row["n"]) if not _is_missing(row.get("n")) else len(x), x_mean=x_mean, sxx=sxx,
-        t=t, through_origin=fit.through_origin, limit=fit.limit, crossing=cross,
+        t=t, through_origin=fit.through_origin, limit=limit, crossing=cross,
         subtitle=subtitle, bend=_bend_data(fit, bends, name),
         whole_cross=_whole_cross(fit, row))
 

@@ -605,7 +605,54 @@ def panels(
     height = fig.get_figheight()
     fig.subplots_adjust(left=0.08, right=0.98, top=1.0 - (legend_in + 0.25) / height,
                         bottom=0.5 / height + 0.02, hspace=0.55, wspace=0.32)
+    _place_notes(fig, [ax for ax in axes.flat if ax.get_visible()], items, info)
     return Drawn(fig, info=info)
+
+
+#: Where a panel's note may stand (axes fraction x, y, ha, va): the corners, then the middles.
+NOTE_SPOTS: tuple[tuple[float, float, Across, Upright], ...] = (
+    (0.99, 0.97, "right", "top"), (0.99, 0.03, "right", "bottom"),
+    (0.01, 0.97, "left", "top"), (0.01, 0.03, "left", "bottom"),
+    (0.5, 0.97, "center", "top"), (0.5, 0.03, "center", "bottom"))
+
+
+def _place_notes(fig: Figure, axes: Sequence[Axes], items: Sequence[Panel],
+                 info: dict[str, Any]) -> None:
+    """Move each panel's note (limit, crossing) to a spot where it covers no data marker, once
+    the layout is final; a note that finds none stays at its first spot and is counted in
+    ``info["panels"][name]["note_on_markers"]``."""
+    fig.canvas.draw()
+    renderer = fig.canvas.get_renderer()  # type: ignore[attr-defined]
+    for ax, p in zip(axes, items, strict=False):
+        notes = [t for t in ax.texts if t.get_gid() == "limit-note"]
+        if not notes or len(p.x) == 0:
+            continue
+        note = notes[0]
+        # markers as drawn: data points (radius about 3 px) and outliers (about 5 px)
+        boxes = marker_boxes(ax, list(p.x), list(p.y), 5.0)
+        frame = ax.get_window_extent(renderer).extents
+        inside = ((boxes[:, 2] >= frame[0]) & (boxes[:, 0] <= frame[2])
+                  & (boxes[:, 3] >= frame[1]) & (boxes[:, 1] <= frame[3]))
+        boxes = boxes[inside]
+        best: tuple[int, tuple[float, float, Across, Upright]] | None = None
+        for spot in NOTE_SPOTS:
+            note.set_position(spot[:2])
+            note.set_horizontalalignment(spot[2])
+            note.set_verticalalignment(spot[3])
+            box = note.get_window_extent(renderer).extents
+            hits = int(np.sum((box[0] < boxes[:, 2]) & (box[2] > boxes[:, 0])
+                              & (box[1] < boxes[:, 3]) & (box[3] > boxes[:, 1])))
+            if best is None or hits < best[0]:
+                best = (hits, spot)
+            if hits == 0:
+                break
+        assert best is not None
+        note.set_position(best[1][:2])
+        note.set_horizontalalignment(best[1][2])
+        note.set_verticalalignment(best[1][3])
+        panel = info["panels"].setdefault(p.name, {})
+        panel["note_on_markers"] = best[0]
+        panel["marker_boxes"] = boxes
 
 
 # -- slope history -------------------------------------------------------------------------
