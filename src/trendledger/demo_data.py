@@ -84,7 +84,6 @@ y = "capacity_ah"
 limit = 2.4          # end-of-life floor, 80 % of the 3.0 Ah nominal capacity (common practice for cells)
 horizon = 200        # warn when the projected crossing is within 200 cycles
 window = "week"      # slope per calendar week of the `day` field
-min_r2 = 0.9
 alpha = 0.01
 """  # noqa: E501 (the limit comment is long on purpose: it says where 2.4 comes from)
 
