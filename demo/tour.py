@@ -34,10 +34,12 @@ STEPS: list[tuple[str, str]] = [
      "trendledger fits --view fleet_units --sort slope_z_p --limit 5"),
     ("The fleet as a whole: spread of the slopes, and may the cells be pooled (ICH Q1E)?",
      "trendledger fits --fleet --format json"),
-    ("Today's alerts. low_r2: the cell no longer follows a straight line; outliers: readings "
-     "far from its line; slope_changed: its latest week's slope differs from its earlier "
-     "trend; unlike_fleet: its slope differs from the other cells' (the knee cells fade fast "
-     "too, but they bend, so only c49 is compared):",
+    ("Today's alerts, the most severe unit first. bent: the line bent, and the line since "
+     "the bend holds now; slope_changed: its latest week's slope differs from its earlier "
+     "trend; not_straight: the readings curve; unlike_fleet: its slope differs from the other "
+     "cells' (the knee cells fade fast too, but they bend, so only c49 is compared); "
+     "outliers: readings far from its line. Each test is judged across the 49 cells "
+     "(Benjamini-Hochberg); the flat, noisy cells raise nothing:",
      "trendledger watch"),
     ("Ask anything in SQL (read-only; parameters are bound, never pasted):",
      "trendledger query \"SELECT f.cell, f.slope, count(DISTINCT m.file_id) AS files "
