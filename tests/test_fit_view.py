@@ -69,7 +69,8 @@ def create_view(
 ) -> str:
     values = {"view": view, "source": "measurements", "group": list(group), "x": "x", "y": "y",
               "level": level, "moments_view": f"{view}_moments",
-              "line": Part("line_origin" if file == "fit_origin" else "line_intercept")}
+              "line": Part("line_origin" if file == "fit_origin" else "line_intercept"),
+              "y_resolution_or_null": None}  # no recorded step: the data's own residual sd
     # the fit reads the sums of a moments view (moments_full.sql, or its _origin twin)
     sums = file.replace("fit", MOMENTS, 1)
     for statement in templates.load(f"views/{sums}.sql").render(

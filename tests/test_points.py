@@ -226,7 +226,13 @@ def test_fieller_interval_matches_the_confidence_band(crossing: pd.DataFrame, ce
     a, b = res.params
     cross = (LIMIT - a) / b
     row = crossing.loc[cell]
-    assert row["note"] is None or pd.isna(row["note"])
+    # the ICH Q1E rule: up to twice the period the data cover (numpy on the cell's x)
+    x = np.array([r[0] for r in SERIES[cell]], dtype=float)
+    assert row["extrapolation_end"] == 2 * x.max() - x.min()
+    if row["cross_bound"] > row["extrapolation_end"]:
+        assert row["note"] == "extrapolated: beyond extrapolation_end (ICH Q1E rule)"
+    else:
+        assert row["note"] is None or pd.isna(row["note"])
     assert row["cross_x"] == pytest.approx(cross, rel=RTOL)
     # both ends: where the level band (get_prediction, alpha = 1 - level) has the limit on
     # its edge, found by brentq on either side of the crossing
@@ -247,21 +253,29 @@ def test_fieller_interval_matches_the_confidence_band(crossing: pd.DataFrame, ce
 
 
 def test_crossing_notes(crossing: pd.DataFrame) -> None:
-    assert crossing.loc["away", "note"] == "slope points away from the limit"
+    # `limit` is the side the slope points to: for the rising cell above it, a ceiling that
+    # it is past already
+    assert crossing.loc["away", "side"] == "upper"
+    assert crossing.loc["away", "note"] == "past the limit at the latest x"
+    assert bool(crossing.loc["away", "past"])
     assert crossing.loc["flat", "note"] == "flat line never reaches the limit"
     assert crossing.loc["two", "note"] == "no line: too_few_points"
-    # the p-value itself is the fit view's slope_p; the note names the alpha it failed
-    assert crossing.loc["three", "note"] == "slope not significant at alpha 0.01"
-    assert crossing.loc["noisy", "note"] == "slope not significant at alpha 0.01"
-    for cell in ("away", "flat", "two", "three", "noisy"):
+    for cell in ("flat", "two"):
         assert crossing.loc[cell, ["cross_x", "cross_lo", "cross_hi", "cross_bound"]].isna().all()
+    # the p-value itself is the fit view's slope_p; the note names the alpha it failed, and
+    # the projection stands beside it (ICH Q1E projects from the bound whatever the slope)
+    for cell in ("three", "noisy"):
+        assert crossing.loc[cell, "note"].startswith("slope not significant at alpha 0.01")
+        assert pd.notna(crossing.loc[cell, "cross_x"])
 
 
 def test_exact_line_crosses_with_zero_width(crossing: pd.DataFrame) -> None:
     row = crossing.loc["exact"]
     # 3 - x / 128 = 2 at x = 128
     assert row["cross_x"] == row["cross_lo"] == row["cross_hi"] == row["cross_bound"] == 128.0
-    assert pd.isna(row["note"])
+    # the data cover x 1 to 8: the ICH Q1E rule supports a projection to 15 at most
+    assert row["extrapolation_end"] == 15.0
+    assert row["note"] == "extrapolated: beyond extrapolation_end (ICH Q1E rule)"
 
 
 def test_unbounded_interval_at_a_high_level(store: Path) -> None:
@@ -272,9 +286,13 @@ def test_unbounded_interval_at_a_high_level(store: Path) -> None:
     assert 0.05 < res.pvalues[1] < 0.3
     assert row["cross_x"] == pytest.approx((LIMIT - res.params[0]) / res.params[1], rel=RTOL)
     assert pd.isna(row["cross_lo"]) and pd.isna(row["cross_hi"])
-    # |t| is about 1.6, below the one-sided 95% quantile too: no bound either
-    assert pd.isna(row["cross_bound"])
-    assert row["note"] == "interval unbounded at level 0.99; bound unbounded"
+    # |t| is about 1.6, below the one-sided 95% quantile too: the bound widens faster than the
+    # line falls and meets the floor before the line does; reference: the root of statsmodels
+    # get_prediction(x).conf_int(alpha=0.10)'s lower edge less the limit
+    cross = (LIMIT - res.params[0]) / res.params[1]
+    bound = _root(lambda x: _band(res, x, 0.10)[0] - LIMIT, 40.0, cross)
+    assert row["cross_bound"] == pytest.approx(bound, rel=T_RTOL)
+    assert row["note"].startswith("interval unbounded at level 0.99")
 
 
 def test_cli_crossing_carries_the_caution(store: Path) -> None:

@@ -12,7 +12,8 @@
 -- Columns:
 --   group columns   as in the fit view
 --   side            'lower' (a floor) or 'upper' (a ceiling). A fit's `limit` is the side the
---                   slope points to: 'lower' when the line falls, else 'upper'.
+--                   slope points to: 'lower' when the line falls, 'upper' when it rises; for
+--                   a flat line (or none) the side the limit lies on
 --   limit_value     the limit: the spec's number, or its fraction of start_y
 --   start_y         the group's first reading: the mean of its y at its smallest x (whole
 --                   history), what a relative limit ({ fraction = 0.8, of = "start" }) scales
@@ -97,6 +98,9 @@ groups AS (
         CASE
             WHEN s.tl_side <> 'slope' THEN s.tl_side
             WHEN l.slope < 0 THEN 'lower'
+            WHEN l.slope > 0 THEN 'upper'
+            -- no slope to follow: the side the limit lies on
+            WHEN s.tl_value < l.centre_y THEN 'lower'
             ELSE 'upper'
         END AS side,
         coalesce(s.tl_value, s.tl_fraction * st.start_y) AS limit_value,

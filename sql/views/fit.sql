@@ -114,9 +114,10 @@ estimates AS (
         __line__.fit_slope AS slope,
         __line__.fit_intercept AS intercept,
         CASE
-            WHEN stage = 'ok' THEN greatest(rss_ls, coalesce(__line__.df
+            WHEN stage = 'ok' AND __y_resolution_or_null__ IS NULL THEN rss_ls
+            WHEN stage = 'ok' THEN greatest(rss_ls, __line__.df
                 * CAST(__y_resolution_or_null__ AS DOUBLE)
-                * CAST(__y_resolution_or_null__ AS DOUBLE) / 12, 0))
+                * CAST(__y_resolution_or_null__ AS DOUBLE) / 12)
             WHEN stage IN (__line__.no_spread, 'perfect_fit') THEN 0.0
         END AS rss,
         CASE
