@@ -272,11 +272,12 @@ def test_views_follow_the_fit_settings(lab_store: Path) -> None:
     # no limit: no crossing view and no crossing_soon
     assert "fit_nolimit_crossing" not in names and "fit_nolimit_change" in names
     assert list(nolimit["reason"]) == ["too_few_points"]
-    # through the origin: points and crossing have _origin twins (test_origin_views.py); the
-    # other views assume an intercept and are left out
+    # through the origin: points, crossing, windows and change serve both lines
+    # (test_origin_views.py, test_origin_windows.py); the views that assume an intercept are
+    # left out
     assert {n for n in names if n.startswith("fit_origin")} >= {
         "fit_origin", "fit_origin_moments", "fit_origin_points", "fit_origin_crossing"}
-    assert not {f"fit_origin_{k}" for k in ("windows", "change", "break", "alerts")} & names
+    assert not {f"fit_origin_{k}" for k in ("break", "alerts", "trend", "straight")} & names
 
 
 def test_watch_cli_groups_by_unit_and_cautions(lab_store: Path) -> None:
