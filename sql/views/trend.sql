@@ -25,6 +25,8 @@
 --                   with n_a - 2 degrees of freedom
 --                   (s_a at least resolution / sqrt(12) when y has a resolution, as in fit.sql)
 --   outside         trend_p < alpha_trend: the reading lies outside the interval
+--                   (an earlier line that fits exactly, residual sum below 1e-10 of syy, has
+--                   s_a = 0 and no trend_t: the difference of sums leaves only rounding)
 --   note            NULL, or why there is no interval: 'fewer than 3 earlier readings',
 --                   'earlier x without spread'
 CREATE OR REPLACE VIEW __view__ AS
@@ -99,7 +101,12 @@ lines AS MATERIALIZED (
         CASE
             WHEN tl_n_a >= 3 AND tl_sxx_a > 0
                 THEN greatest(
-                    sqrt(greatest(tl_syy_a - tl_sxy_a * tl_sxy_a / tl_sxx_a, 0) / (tl_n_a - 2)),
+                    -- a residual sum below 1e-10 of syy is rounding from the downdate: 0
+                    sqrt(CASE
+                        WHEN tl_syy_a - tl_sxy_a * tl_sxy_a / tl_sxx_a > 1e-10 * tl_syy_a
+                            THEN tl_syy_a - tl_sxy_a * tl_sxy_a / tl_sxx_a
+                        ELSE 0
+                    END / (tl_n_a - 2)),
                     coalesce(CAST(__y_resolution_or_null__ AS DOUBLE) / sqrt(12), 0))
         END AS tl_s_a
     FROM downdated
