@@ -5,6 +5,7 @@ UPDATE __table__ AS t
 SET
     n = m.n,
     n_rows = m.n_rows,
+    n_outside = m.n_outside,
     x_mean = m.x_mean,
     y_mean = m.y_mean,
     sxx = m.sxx,

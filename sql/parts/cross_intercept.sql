@@ -10,6 +10,8 @@
 --                   of the quadratic's roots at the level (w_bound at the bound); NULL for g >= 1
 --   x_lo, x_hi      centre_x + (u0 -/+ w_level) / (1 - g_level)
 --   x_bound         centre_x + (u0 - w_bound) / (1 - g_bound)
+--   x_bound_far     centre_x + (u0 + w_bound) / (1 - g_bound), the other end of the bound's
+--                   90% interval (the bound of a reciprocal x, sql/parts/back_reciprocal.sql)
 SELECT
     (CAST(__limit__ AS DOUBLE) - g.centre_y) / g.slope AS u0,
     (q.t_level * g.slope_se / g.slope) * (q.t_level * g.slope_se / g.slope) AS g_level,
@@ -26,4 +28,5 @@ SELECT
     END AS w_bound,
     centre_x + (u0 - w_level) / (1 - g_level) AS x_lo,
     centre_x + (u0 + w_level) / (1 - g_level) AS x_hi,
-    centre_x + (u0 - w_bound) / (1 - g_bound) AS x_bound
+    centre_x + (u0 - w_bound) / (1 - g_bound) AS x_bound,
+    centre_x + (u0 + w_bound) / (1 - g_bound) AS x_bound_far

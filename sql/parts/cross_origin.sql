@@ -11,6 +11,7 @@
 --   w_level, w_bound  not needed (NULL): the ends are quotients
 --   x_lo, x_hi      x0 / (1 + r) and x0 / (1 - r) (x0 >= 0 once away is false)
 --   x_bound         x0 / (1 + r) with r at the bound
+--   x_bound_far     x0 / (1 - r) with r at the bound, the other end of the bound's 90% interval
 SELECT
     CASE WHEN g.slope <> 0 THEN CAST(__limit__ AS DOUBLE) / g.slope END AS u0,
     CASE WHEN g.slope <> 0 THEN q.t_level * g.slope_se / abs(g.slope) END AS g_level,
@@ -21,4 +22,5 @@ SELECT
     CAST(NULL AS DOUBLE) AS w_bound,
     CASE WHEN no_line IS NULL AND g_level < 1 THEN u0 / (1 + g_level) END AS x_lo,
     CASE WHEN no_line IS NULL AND g_level < 1 THEN u0 / (1 - g_level) END AS x_hi,
-    CASE WHEN no_line IS NULL AND g_bound < 1 THEN u0 / (1 + g_bound) END AS x_bound
+    CASE WHEN no_line IS NULL AND g_bound < 1 THEN u0 / (1 + g_bound) END AS x_bound,
+    CASE WHEN no_line IS NULL AND g_bound < 1 THEN u0 / (1 - g_bound) END AS x_bound_far

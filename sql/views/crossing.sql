@@ -9,6 +9,10 @@
 -- (cross_intercept.sql, or cross_origin.sql for y = slope x: cross_x = limit / slope, n - 1
 -- degrees of freedom, 'slope points away' also for a crossing at a negative x). Below, the line
 -- with an intercept.
+-- A fit whose x or y is a form (x = "ln(col)" ...) fits the line on that scale: the limit,
+-- given in y's own units, is taken through y's form, and the crossing, its interval ends, the
+-- bound and from_x are mapped back to x's own units through the slot __x_back__
+-- (sql/parts/back_*.sql; for reciprocal(x) the ends swap). The note speaks of the fit's scale.
 -- One row per group of the fit view. Columns:
 --   group columns   as in the fit view
 --   cross_x         x where the line reaches the limit: centre_x + (limit - centre_y) / slope
@@ -91,15 +95,17 @@ ends AS (
         *,
         __cross__.x_lo AS x_lo,
         __cross__.x_hi AS x_hi,
-        __cross__.x_bound AS x_bound
+        __cross__.x_bound AS x_bound,
+        __cross__.x_bound_far AS x_bound_far
     FROM roots
 )
 SELECT
     __group__,
-    CASE WHEN isfinite(x_cross) THEN x_cross END AS cross_x,
-    CASE WHEN isfinite(x_lo) AND isfinite(x_hi) THEN x_lo END AS cross_lo,
-    CASE WHEN isfinite(x_lo) AND isfinite(x_hi) THEN x_hi END AS cross_hi,
-    CASE WHEN isfinite(x_bound) THEN x_bound END AS cross_bound,
+    -- __x_back__ (sql/parts/back_*.sql): from the fit's scale back to x's own units
+    CASE WHEN isfinite(x_cross) THEN __x_back__.cross_x END AS cross_x,
+    CASE WHEN isfinite(x_lo) AND isfinite(x_hi) THEN __x_back__.cross_lo END AS cross_lo,
+    CASE WHEN isfinite(x_lo) AND isfinite(x_hi) THEN __x_back__.cross_hi END AS cross_hi,
+    CASE WHEN isfinite(x_bound) THEN __x_back__.cross_bound END AS cross_bound,
     CASE
         WHEN no_line IS NOT NULL THEN no_line
         WHEN NOT isfinite(x_cross) THEN 'no line: out_of_range'
@@ -112,5 +118,5 @@ SELECT
         ), '')
     END AS note,
     basis,
-    from_x
+    __x_back__.from_x AS from_x
 FROM ends

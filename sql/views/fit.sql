@@ -8,6 +8,10 @@
 -- working column (gid, b_ls, rss_all, rss_ls, ss_line, stage, t_crit) or a column of the
 -- moments view.
 --
+-- n_outside (last column) counts the rows of the group whose x and y are present and finite
+-- but outside the domain of the fit's form of x or y (x = "ln(col)" ...): left out like a
+-- missing value. With a form, the line, r2, the slope and the intervals are on the form's scale.
+--
 -- status, first matching rule wins:
 --   too_few_points  n < 3. With n = 2 and two different x the line through the two points is
 --                   given (slope, intercept, and r2 = 1 unless y is constant); everything that
@@ -45,6 +49,7 @@ WITH sums AS MATERIALIZED (
         __group__,
         row_number() OVER () AS gid,
         n,
+        n_outside,
         x_min,
         x_max,
         y_min,
@@ -169,7 +174,8 @@ SELECT
     f.slope_hi,
     f.intercept_lo,
     f.intercept_hi,
-    v.status
+    v.status,
+    g.n_outside
 FROM sums AS g
 JOIN verdict AS v ON v.gid = g.gid
 -- a row out of range keeps its status and count but no statistics

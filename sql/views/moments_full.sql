@@ -9,6 +9,8 @@
 -- One row per group (a NULL group key is a group like any other), with the group columns and:
 --   n                 pairs (x, y) that count: both present and finite (BIGINT)
 --   n_rows            rows of the group, counted pairs or not (BIGINT)
+--   n_outside         rows whose x and y are present and finite but outside the domain of the
+--                     fit's form of x or y (ln of 0, ...): left out like a missing value (BIGINT)
 --   x_mean, y_mean    means of the counted pairs
 --   sxx, sxy, syy     centred sums: sum((x - x_mean)^2), sum((x - x_mean)(y - y_mean)),
 --                     sum((y - y_mean)^2); sxx is exactly 0 when every x is the same, and sxy,
@@ -44,7 +46,8 @@ WITH pairs AS NOT MATERIALIZED (
         CASE WHEN isfinite(CAST(__x__ AS DOUBLE)) AND isfinite(CAST(__y__ AS DOUBLE))
             THEN CAST(__x__ AS DOUBLE) END AS px,
         CASE WHEN isfinite(CAST(__x__ AS DOUBLE)) AND isfinite(CAST(__y__ AS DOUBLE))
-            THEN CAST(__y__ AS DOUBLE) END AS py
+            THEN CAST(__y__ AS DOUBLE) END AS py,
+        __outside__ AS tl_outside
     FROM __source__
 ),
 pass1 AS MATERIALIZED (
@@ -53,6 +56,7 @@ pass1 AS MATERIALIZED (
         row_number() OVER () AS gid,
         CAST(count(px) AS BIGINT) AS n,
         CAST(count(*) AS BIGINT) AS n_rows,
+        CAST(count(*) FILTER (WHERE tl_outside) AS BIGINT) AS n_outside,
         min(px) AS x_min,
         max(px) AS x_max,
         min(py) AS y_min,
@@ -132,6 +136,7 @@ SELECT
     g.__group__,
     g.n,
     g.n_rows,
+    g.n_outside,
     r.x_mean,
     r.y_mean,
     r.sxx,

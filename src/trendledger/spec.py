@@ -16,6 +16,9 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+import sqlglot
+from sqlglot import exp
+
 from trendledger.errors import SpecError
 from trendledger.views import names
 
@@ -47,6 +50,16 @@ RESERVED = {"file_id"}
 #: Cell texts read as missing (NULL) when the spec names none: what instruments and
 #: spreadsheets write for "no value".
 MISSING = ("", "NaN", "nan")
+#: The forms a fit's x or y may take instead of a column's own values (sql/parts/forms.sql):
+#: the line is fitted on that scale and answered back in the column's units.
+FORMS = ("ln", "log10", "sqrt", "reciprocal")
+#: A value the form cannot take, for the limit's check: (test, what the domain is).
+FORM_DOMAINS = {
+    "ln": (lambda v: v > 0, "above 0"),
+    "log10": (lambda v: v > 0, "above 0"),
+    "sqrt": (lambda v: v >= 0, "0 or above"),
+    "reciprocal": (lambda v: v != 0, "other than 0"),
+}
 
 
 @dataclass(frozen=True)
@@ -71,10 +84,18 @@ class Fit:
     pool_alpha: float = 0.25
     bend: str = "joined"
     bend_min: float = 0.15
+    #: the form x and y are fitted in (one of FORMS), None for the column's own values
+    x_form: str | None = None
+    y_form: str | None = None
 
     @property
     def view(self) -> str:
         return f"fit_{self.name}"
+
+    def shown(self, axis: str) -> str:
+        """How the fit names its x or y: the column, or the form of it, e.g. ``ln(assay)``."""
+        col, form = (self.x, self.x_form) if axis == "x" else (self.y, self.y_form)
+        return f"{form}({col})" if form else col
 
 
 @dataclass(frozen=True)
@@ -444,8 +465,10 @@ def _parse_fit(raw: Any, index: int, source: Source, path: str | None) -> Fit:
                             file=path, hint=did_you_mean(value, list(known)))
         return value
 
-    x = column("x", raw.get("x"))
-    y = column("y", raw.get("y"))
+    x_form, x_text = _form(raw.get("x"), "x", where, path)
+    y_form, y_text = _form(raw.get("y"), "y", where, path)
+    x = column("x", x_text)
+    y = column("y", y_text)
     for key, col in (("x", x), ("y", y)):
         if known[col] not in NUMERIC and not DECIMAL.match(known[col]):
             raise SpecError(f"{where}: {key} = {col!r} has type {known[col]}; it must be numeric",
@@ -506,11 +529,18 @@ def _parse_fit(raw: Any, index: int, source: Source, path: str | None) -> Fit:
     if bend_min is not None and not 0 < bend_min < 0.5:
         raise SpecError(f"{where}: bend_min is the least share of a group's points on each "
                         "side of a bend, above 0 and below 0.5, e.g. 0.15", file=path)
+    limit = _number(raw, "limit", where, path)
+    if limit is not None and y_form is not None:
+        inside, domain = FORM_DOMAINS[y_form]
+        if not inside(limit):
+            raise SpecError(f"{where}: limit = {limit:g} is given in {y}'s own units and "
+                            f"{y_form}({y}) needs a value {domain}", file=path)
     return Fit(
         name=name, group=group, x=x, y=y,
+        x_form=x_form, y_form=y_form,
         level=level if level is not None else 0.95,
         through_origin=origin,
-        limit=_number(raw, "limit", where, path),
+        limit=limit,
         horizon=horizon,
         window=window,
         window_x=window_x,
@@ -521,6 +551,32 @@ def _parse_fit(raw: Any, index: int, source: Source, path: str | None) -> Fit:
         bend=bend,
         bend_min=bend_min if bend_min is not None else 0.15,
     )
+
+
+def _form(value: Any, key: str, where: str, path: str | None) -> tuple[str | None, Any]:
+    """Split ``x`` or ``y`` into (form, column): ``"ln(assay)"`` gives ("ln", "assay"), a
+    plain column name gives (None, name). Anything else is refused in one sentence."""
+    if not isinstance(value, str) or "(" not in value:
+        return None, value
+    allowed = ", ".join(f"{f}(column)" for f in FORMS)
+    refused = SpecError(f"{where}: {key} = {value!r} is neither a column nor one of the "
+                        f"allowed forms {allowed} of one declared column", file=path)
+    try:
+        node = sqlglot.parse_one(value, read="duckdb")
+    except sqlglot.errors.SqlglotError:
+        raise refused from None
+    name = re.match(r"\s*([A-Za-z0-9_]+)\s*\(", value)
+    form = name.group(1).lower() if name else None
+    kinds = {"ln": exp.Ln, "log10": exp.Log, "sqrt": exp.Sqrt, "reciprocal": exp.Anonymous}
+    if form not in kinds or not isinstance(node, kinds[form]):
+        raise refused
+    args = [a for a in node.iter_expressions()
+            if not (form == "log10" and isinstance(a, exp.Literal) and a.this == "10")]
+    if (len(args) != 1 or not isinstance(args[0], exp.Column) or args[0].table
+            or (isinstance(node, exp.Log) and node.this is not None and not (
+                isinstance(node.this, exp.Literal) and node.this.this == "10"))):
+        raise refused
+    return form, args[0].name
 
 
 def _fleet(raw: Any, group: tuple[str, ...], known: dict[str, str], where: str,

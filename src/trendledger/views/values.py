@@ -12,7 +12,7 @@ from typing import Any
 from sqlglot import exp
 
 from trendledger.spec import Fit, Spec
-from trendledger.views import templates
+from trendledger.views import forms, templates
 from trendledger.views.templates import Part, Text
 
 #: View kinds per fit, in install order (later ones may read earlier ones).
@@ -51,10 +51,20 @@ def fit_values(spec: Spec, fit: Fit) -> dict[str, Any]:
         "group_text": [exp.func("coalesce", exp.cast(exp.column(g, quoted=True), "VARCHAR"),
                                 exp.Literal.string("NULL")) for g in fit.group],
         "fit_name": Text(fit.name),
-        "x": fit.x,
-        "y": fit.y,
+        # the column, or its form (views/forms.py): what every view fits
+        "x": forms.value(fit.x, fit.x_form),
+        "y": forms.value(fit.y, fit.y_form),
+        # the columns' own values (the points view shows both)
+        "x_column": fit.x,
+        "y_column": fit.y,
+        # true for a row a form leaves out (counted per group: n_outside)
+        "outside": forms.outside(fit),
+        # sql/parts/back_*.sql: the fit's scale back to the columns' own units
+        "x_back": Part(f"back_{fit.x_form or 'plain'}"),
+        "y_back": Part(f"back_{fit.y_form or 'plain'}"),
         "level": fit.level,
-        "limit": fit.limit,
+        # the limit is given in y's own units; the views compare it on the fit's scale
+        "limit": forms.limit(fit),
         "horizon": fit.horizon,
         "window": Text(fit.window) if fit.window else None,
         "window_field": dates[0] if dates else None,

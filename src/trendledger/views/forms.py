@@ -1,0 +1,59 @@
+"""The values a fit reads for x and y: a column, or a form of it (sql/parts/forms.sql).
+
+A plain fit reads its columns by name, so its views render as they always have. A fit with a
+form reads an expression instead: the form of the column as DOUBLE, NULL outside the form's
+domain. The templates take it wherever they read ``__x__`` or ``__y__`` (a table qualifier
+in the template, ``r.__x__``, qualifies the expression's column), so every view of the fit
+(moments, points, windows, bend, change, break) fits the same composed input.
+"""
+
+from __future__ import annotations
+
+from sqlglot import exp
+
+from trendledger.spec import Fit
+from trendledger.views import templates
+
+#: The part holding the forms' expressions, and the name of the value each reads.
+PART = "forms"
+VALUE = "tl_value"
+
+
+def _apply(form: str, value: exp.Expression) -> exp.Expression:
+    """The form's expression (forms.sql) with ``value`` in place of tl_value."""
+    tree = templates.part_expressions(PART)[form].copy()
+    for col in list(tree.find_all(exp.Column)):
+        if col.name == VALUE:
+            col.replace(value.copy())
+    return tree
+
+
+def _double(column: str) -> exp.Expression:
+    return exp.cast(exp.column(column, quoted=True), "DOUBLE")
+
+
+def value(column: str, form: str | None) -> str | exp.Expression:
+    """What a template reads for x or y: the column's name, or the form's expression."""
+    if form is None:
+        return column
+    return _apply(form, _double(column))
+
+
+def outside(fit: Fit) -> exp.Expr:
+    """True for a row whose x and y are both present and finite but a form leaves out."""
+    if fit.x_form is None and fit.y_form is None:
+        return exp.false()
+    raw = exp.and_(exp.func("isfinite", _double(fit.x)), exp.func("isfinite", _double(fit.y)))
+    fitted: exp.Expr = exp.and_(*(
+        exp.func("isfinite", _apply(form, _double(col)) if form else _double(col))
+        for col, form in ((fit.x, fit.x_form), (fit.y, fit.y_form))))
+    fitted = exp.func("coalesce", fitted, exp.false())  # isfinite(NULL) is NULL
+    out: exp.Expr = exp.func("coalesce", exp.and_(raw, exp.not_(fitted)), exp.false())
+    return out
+
+
+def limit(fit: Fit) -> float | exp.Expression | None:
+    """The limit on the fit's scale: given in y's own units, taken through y's form."""
+    if fit.limit is None or fit.y_form is None:
+        return fit.limit
+    return _apply(fit.y_form, exp.cast(exp.Literal.number(repr(fit.limit)), "DOUBLE"))
