@@ -20,7 +20,8 @@ SET
     slope_hi = m.slope_hi,
     intercept_lo = m.intercept_lo,
     intercept_hi = m.intercept_hi,
-    status = m.status
+    status = m.status,
+    n_outside = m.n_outside
 FROM tl_mfitted AS m
 WHERE ROW(f.__group__) IS NOT DISTINCT FROM ROW(m.__group__);
 

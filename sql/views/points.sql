@@ -5,7 +5,8 @@
 -- (x - x_mean), two parameters) or line_origin.sql for a fit through the origin (y = slope x,
 -- one parameter: leverage x^2 / sum(x^2), n - 2 degrees of freedom without the row, Cook's
 -- distance r^2 h / (1 - h), status y_all_zero for constant_y). Below, the line with an intercept.
--- One row per row of the data. Columns:
+-- One row per row of the data that the fit's filter keeps (where = "...": rows it does not
+-- keep are in no view of the fit). Columns:
 --   group columns     as in the fit view
 --   x, y              the row's x and y, as DOUBLE
 --   file_id           the file the row came from (lineage)
@@ -97,6 +98,8 @@ readings AS (
     FROM __source__ AS r
     JOIN groups AS g ON ROW(r.__group__) IS NOT DISTINCT FROM ROW(g.__group__)
     LEFT JOIN quantiles AS q ON q.n = g.n
+    -- the fit's row filter (spec: where = "..."), TRUE for a fit of every row
+    WHERE r.__kept__
 ),
 line AS (
     SELECT

@@ -19,7 +19,8 @@ from typing import Any
 import sqlglot
 from sqlglot import exp
 
-from trendledger.errors import SpecError
+from trendledger.errors import QueryRefused, SpecError
+from trendledger.query.where import check_where
 from trendledger.views import names
 
 FORMATS = ("csv", "tsv", "parquet", "jsonl")
@@ -87,6 +88,9 @@ class Fit:
     #: the form x and y are fitted in (one of FORMS), None for the column's own values
     x_form: str | None = None
     y_form: str | None = None
+    #: a row filter (restricted like ``fits --where``): rows it does not hold stay in the store
+    #: and out of this fit; None fits every row
+    where: str | None = None
 
     @property
     def view(self) -> str:
@@ -441,7 +445,7 @@ def _guess_format(files: str) -> str:
 FIT_KEYS = {
     "name", "group", "x", "y", "level", "through_origin", "limit", "horizon", "window",
     "window_x", "min_r2", "alpha", "fleet", "pool_alpha",
-    "bend", "bend_min",
+    "bend", "bend_min", "where",
 }
 
 
@@ -535,9 +539,12 @@ def _parse_fit(raw: Any, index: int, source: Source, path: str | None) -> Fit:
         if not inside(limit):
             raise SpecError(f"{where}: limit = {limit:g} is given in {y}'s own units and "
                             f"{y_form}({y}) needs a value {domain}", file=path)
+    row_filter = raw.get("where")
+    if row_filter is not None:
+        filter_condition(row_filter, known, where, path)
     return Fit(
         name=name, group=group, x=x, y=y,
-        x_form=x_form, y_form=y_form,
+        x_form=x_form, y_form=y_form, where=row_filter,
         level=level if level is not None else 0.95,
         through_origin=origin,
         limit=limit,
@@ -551,6 +558,23 @@ def _parse_fit(raw: Any, index: int, source: Source, path: str | None) -> Fit:
         bend=bend,
         bend_min=bend_min if bend_min is not None else 0.15,
     )
+
+
+def filter_condition(text: Any, known: dict[str, str], where: str = "[[fit]]",
+                     path: str | None = None) -> exp.Expr:
+    """A fit's ``where``: a condition over declared columns and fields, checked like
+    ``fits --where`` (columns, literals, comparisons, arithmetic, no function call)."""
+    if not isinstance(text, str):
+        raise SpecError(f"{where}: where must be a condition in a string, e.g. "
+                        "where = \"cycle_kind = 'standard'\"", file=path)
+    try:
+        return check_where(text, list(known))
+    except QueryRefused as err:
+        reason = err.message.removeprefix("refused: ").replace("the --where condition",
+                                                               "the condition")
+        reason = reason.replace("--where", "where")
+        raise SpecError(f"{where}: where = {text!r}: {reason}", file=path,
+                        hint=err.hint) from None
 
 
 def _form(value: Any, key: str, where: str, path: str | None) -> tuple[str | None, Any]:

@@ -1,4 +1,5 @@
-"""The values a fit reads for x and y: a column, or a form of it (sql/parts/forms.sql).
+"""The values a fit reads for x and y: a column, or a form of it (sql/parts/forms.sql), and
+only on the rows its filter keeps.
 
 A plain fit reads its columns by name, so its views render as they always have. A fit with a
 form reads an expression instead: the form of the column as DOUBLE, NULL outside the form's
@@ -11,7 +12,7 @@ from __future__ import annotations
 
 from sqlglot import exp
 
-from trendledger.spec import Fit
+from trendledger.spec import Fit, Spec, filter_condition
 from trendledger.views import templates
 
 #: The part holding the forms' expressions, and the name of the value each reads.
@@ -19,7 +20,7 @@ PART = "forms"
 VALUE = "tl_value"
 
 
-def _apply(form: str, value: exp.Expression) -> exp.Expression:
+def _apply(form: str, value: exp.Expr) -> exp.Expr:
     """The form's expression (forms.sql) with ``value`` in place of tl_value."""
     tree = templates.part_expressions(PART)[form].copy()
     for col in list(tree.find_all(exp.Column)):
@@ -28,22 +29,37 @@ def _apply(form: str, value: exp.Expression) -> exp.Expression:
     return tree
 
 
-def _double(column: str) -> exp.Expression:
+def _double(column: str) -> exp.Expr:
     return exp.cast(exp.column(column, quoted=True), "DOUBLE")
 
 
-def value(column: str, form: str | None) -> str | exp.Expression:
-    """What a template reads for x or y: the column's name, or the form's expression."""
-    if form is None:
+def kept(spec: Spec, fit: Fit) -> exp.Expr | None:
+    """The fit's row filter (``where``) as a condition on quoted columns, or None."""
+    if fit.where is None:
+        return None
+    known = {**spec.source.columns, **spec.source.fields, **spec.source.derived()}
+    return filter_condition(fit.where, known)
+
+
+def value(column: str, form: str | None, keep: exp.Expr | None = None) -> str | exp.Expr:
+    """What a template reads for x or y: the column's name, or the form's expression; with a
+    row filter, NULL for the rows it does not keep (so they count nowhere, like NULL)."""
+    if form is None and keep is None:
         return column
-    return _apply(form, _double(column))
+    out: exp.Expr = _apply(form, _double(column)) if form else exp.column(column, quoted=True)
+    if keep is not None:
+        out = exp.Case(ifs=[exp.If(this=exp.paren(keep.copy()), true=out)])
+    return out
 
 
-def outside(fit: Fit) -> exp.Expr:
-    """True for a row whose x and y are both present and finite but a form leaves out."""
+def outside(fit: Fit, keep: exp.Expr | None = None) -> exp.Expr:
+    """True for a row (kept by the filter) whose x and y are both present and finite but a
+    form leaves out."""
     if fit.x_form is None and fit.y_form is None:
         return exp.false()
     raw = exp.and_(exp.func("isfinite", _double(fit.x)), exp.func("isfinite", _double(fit.y)))
+    if keep is not None:
+        raw = exp.and_(exp.paren(keep.copy()), raw)
     fitted: exp.Expr = exp.and_(*(
         exp.func("isfinite", _apply(form, _double(col)) if form else _double(col))
         for col, form in ((fit.x, fit.x_form), (fit.y, fit.y_form))))
@@ -52,7 +68,7 @@ def outside(fit: Fit) -> exp.Expr:
     return out
 
 
-def limit(fit: Fit) -> float | exp.Expression | None:
+def limit(fit: Fit) -> float | exp.Expr | None:
     """The limit on the fit's scale: given in y's own units, taken through y's form."""
     if fit.limit is None or fit.y_form is None:
         return fit.limit

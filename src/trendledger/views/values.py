@@ -44,6 +44,7 @@ def fit_values(spec: Spec, fit: Fit) -> dict[str, Any]:
     ``__moments_view__`` ...), so a template can read its siblings.
     """
     dates = [n for n, t in spec.all_columns.items() if t.startswith(("DATE", "TIMESTAMP"))]
+    keep = forms.kept(spec, fit)
     values: dict[str, Any] = {
         "source": "measurements",
         "group": list(fit.group),
@@ -52,13 +53,15 @@ def fit_values(spec: Spec, fit: Fit) -> dict[str, Any]:
                                 exp.Literal.string("NULL")) for g in fit.group],
         "fit_name": Text(fit.name),
         # the column, or its form (views/forms.py): what every view fits
-        "x": forms.value(fit.x, fit.x_form),
-        "y": forms.value(fit.y, fit.y_form),
+        "x": forms.value(fit.x, fit.x_form, keep),
+        "y": forms.value(fit.y, fit.y_form, keep),
+        # the rows the fit's filter keeps (the points view leaves the others out)
+        "kept": keep if keep is not None else exp.true(),
         # the columns' own values (the points view shows both)
         "x_column": fit.x,
         "y_column": fit.y,
         # true for a row a form leaves out (counted per group: n_outside)
-        "outside": forms.outside(fit),
+        "outside": forms.outside(fit, keep),
         # sql/parts/back_*.sql: the fit's scale back to the columns' own units
         "x_back": Part(f"back_{fit.x_form or 'plain'}"),
         "y_back": Part(f"back_{fit.y_form or 'plain'}"),
