@@ -322,3 +322,23 @@ def test_limit_outside_the_form_is_refused(tmp_path: Path) -> None:
     lab = Lab(tmp_path / "lab", spec)
     with pytest.raises(SpecError, match=r"limit = 0 is given in value's own units"):
         lab.init()
+
+
+def test_report_draws_the_fit_scale_and_names_it(tmp_path: Path) -> None:
+    spec = HEAD + _fit("decay", "cycle", "ln(value)")
+    lab = Lab(tmp_path / "lab", spec)
+    rng = np.random.default_rng(7)
+    for cell in ("a", "b"):
+        t = np.arange(0.0, 30.0, 2.0)
+        y = 50.0 * np.exp(-0.04 * t + rng.normal(0, 0.01, t.size))
+        lab.write(f"in/2026-03-02/{cell}.csv", "cycle,value\n" + "".join(
+            f"{float(a)!r},{float(b)!r}\n" for a, b in zip(t, y, strict=True)))
+    with lab.init() as led:
+        led.append()
+        page = led.report("decay", out=tmp_path / "report", groups=["a"])
+        crossing = led.fits("decay", view="crossing").set_index("cell")
+    text = page.read_text(encoding="utf-8")
+    assert "ln(value) against cycle" in text
+    # the table gives the crossing in cycle's own units, as the crossing view does
+    assert f"{crossing.loc['a', 'cross_x']:.4g}"[:4] in text
+    assert "the crossings below are in cycle's own units" in text

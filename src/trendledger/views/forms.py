@@ -10,6 +10,8 @@ in the template, ``r.__x__``, qualifies the expression's column), so every view 
 
 from __future__ import annotations
 
+import math
+
 from sqlglot import exp
 
 from trendledger.spec import Fit, Spec, filter_condition
@@ -73,3 +75,15 @@ def limit(fit: Fit) -> float | exp.Expr | None:
     if fit.limit is None or fit.y_form is None:
         return fit.limit
     return _apply(fit.y_form, exp.cast(exp.Literal.number(repr(fit.limit)), "DOUBLE"))
+
+
+def forward(form: str | None, v: float | None) -> float | None:
+    """A value taken through a form in Python, for the report's plots (the views do it in SQL,
+    sql/parts/forms.sql); None outside the form's domain."""
+    if v is None or form is None:
+        return v
+    if form in ("ln", "log10"):
+        return (math.log(v) if form == "ln" else math.log10(v)) if v > 0 else None
+    if form == "sqrt":
+        return math.sqrt(v) if v >= 0 else None
+    return 1.0 / v if v != 0 else None
