@@ -129,6 +129,9 @@ class Source:
     column_missing: dict[str, tuple[str, ...]] = field(default_factory=dict)
     #: folders outside the spec's folder that files may really live in (through links)
     allow: tuple[str, ...] = ()
+    #: named columns computed from declared ones when a fit reads them, never stored:
+    #: {"efficiency": "discharge_ah / charge_ah"} (views/forms.py turns them into SQL)
+    computed: dict[str, str] = field(default_factory=dict)
 
     def derived(self) -> dict[str, str]:
         """Columns the store adds for censored columns: which side, and the limit."""
@@ -261,7 +264,7 @@ def _number(raw: dict[str, Any], key: str, where: str, path: str | None) -> floa
 def _parse_source(doc: dict[str, Any], path: str | None) -> Source:
     raw = _table(doc, "source", path)
     _unknown_keys(raw, {"files", "format", "columns", "fields", "delimiter", "missing",
-                        "decimal", "key", "timezone", "allow"}, "[source]", path)
+                        "decimal", "key", "timezone", "allow", "computed"}, "[source]", path)
     files = raw.get("files")
     if not isinstance(files, str) or not files.strip():
         raise SpecError("[source] files: give a path template such as \"in/{day}/{unit}.csv\"",
@@ -368,10 +371,66 @@ def _parse_source(doc: dict[str, Any], path: str | None) -> Source:
                             "two cases)", file=path)
         lowered[name.lower()] = name
     key = _key(raw.get("key"), {**columns, **fields}, path)
+    computed = _computed(_table(raw, "computed", path, required=False),
+                         {**columns, **fields}, lowered, path)
     return Source(files=files, format=fmt, columns=columns, fields=fields, delimiter=delimiter,
+                  computed=computed,
                   headers=headers, missing=missing, decimal=decimal, key=key,
                   timezone=_zone(raw.get("timezone", "UTC"), path), censored=censored,
                   column_missing=column_missing, allow=_parse_allow(raw.get("allow", []), path))
+
+
+#: What a computed column's expression may hold besides columns, numbers, + - * / and
+#: parentheses: these functions of one value (views/forms.py guards their domains).
+COMPUTED_FUNCTIONS = {"abs": exp.Abs, "ln": exp.Ln, "log10": exp.Log, "sqrt": exp.Sqrt,
+                      "exp": exp.Exp}
+_COMPUTED_NODES = (exp.Column, exp.Identifier, exp.Literal, exp.Paren, exp.Add, exp.Sub,
+                   exp.Mul, exp.Div, exp.Neg, *COMPUTED_FUNCTIONS.values())
+
+
+def computed_tree(text: str) -> exp.Expr:
+    """A computed column's expression parsed (checked by the spec parser)."""
+    return sqlglot.parse_one(text, read="duckdb")
+
+
+def _computed(raw: dict[str, Any], known: dict[str, str], lowered: dict[str, str],
+              path: str | None) -> dict[str, str]:
+    """``[source.computed]``: name = "expression over declared columns and fields"."""
+    out: dict[str, str] = {}
+    allowed = ", ".join(COMPUTED_FUNCTIONS)
+    for name, text in raw.items():
+        where = f"[source.computed] {name}"
+        _check_name(name, "[source.computed]", path)
+        if name.lower() in lowered:
+            raise SpecError(f"{where}: a column or field is already called {name!r}", file=path)
+        refused = SpecError(
+            f"{where}: {text!r} is not an expression of declared numeric columns; only "
+            f"columns, numbers, + - * /, parentheses and the functions {allowed} of one value "
+            "are allowed", file=path)
+        if not isinstance(text, str) or not text.strip():
+            raise refused
+        try:
+            tree = computed_tree(text)
+        except sqlglot.errors.SqlglotError:
+            raise refused from None
+        for node in tree.walk():
+            if not isinstance(node, _COMPUTED_NODES) or (
+                    isinstance(node, exp.Log) and not (
+                        isinstance(node.this, exp.Literal) and node.this.this == "10"
+                        and node.expression is not None)) or (
+                    isinstance(node, exp.Literal) and node.is_string):
+                raise refused
+            if isinstance(node, exp.Column):
+                if node.table or node.name not in known:
+                    raise SpecError(f"{where}: {node.sql()!r} is not a declared column or field",
+                                    file=path, hint=did_you_mean(node.name, list(known)))
+                typ = known[node.name]
+                if typ not in NUMERIC and not DECIMAL.match(typ):
+                    raise SpecError(f"{where}: {node.name!r} has type {typ}; a computed column "
+                                    "reads numeric columns", file=path)
+        out[name] = text
+        lowered[name.lower()] = name
+    return out
 
 
 def _zone(value: Any, path: str | None) -> str:
@@ -459,11 +518,16 @@ def _parse_fit(raw: Any, index: int, source: Source, path: str | None) -> Fit:
         raise SpecError(f"{where}: give it a name", file=path)
     where = f"[[fit]] {name}"
     _check_name(name, where, path)
-    known = {**source.columns, **source.fields}
+    declared = {**source.columns, **source.fields}
+    # x, y and the filter may read computed columns (DOUBLE); group and fleet may not
+    known = {**declared, **{c: "DOUBLE" for c in source.computed}}
 
     def column(key: str, value: Any) -> str:
         if not isinstance(value, str):
             raise SpecError(f"{where}: {key} must be a column name", file=path)
+        if key == "group" and value in source.computed:
+            raise SpecError(f"{where}: group = {value!r} is a computed column; group by "
+                            "declared columns or fields", file=path)
         if value not in known:
             raise SpecError(f"{where}: {key} = {value!r} is not a declared column or field",
                             file=path, hint=did_you_mean(value, list(known)))

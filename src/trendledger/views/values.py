@@ -53,15 +53,15 @@ def fit_values(spec: Spec, fit: Fit) -> dict[str, Any]:
                                 exp.Literal.string("NULL")) for g in fit.group],
         "fit_name": Text(fit.name),
         # the column, or its form (views/forms.py): what every view fits
-        "x": forms.value(fit.x, fit.x_form, keep),
-        "y": forms.value(fit.y, fit.y_form, keep),
+        "x": forms.value(spec, fit.x, fit.x_form, keep),
+        "y": forms.value(spec, fit.y, fit.y_form, keep),
         # the rows the fit's filter keeps (the points view leaves the others out)
         "kept": keep if keep is not None else exp.true(),
         # the columns' own values (the points view shows both)
-        "x_column": fit.x,
-        "y_column": fit.y,
+        "x_column": forms.value(spec, fit.x, None),
+        "y_column": forms.value(spec, fit.y, None),
         # true for a row a form leaves out (counted per group: n_outside)
-        "outside": forms.outside(fit, keep),
+        "outside": forms.outside(spec, fit, keep),
         # sql/parts/back_*.sql: the fit's scale back to the columns' own units
         "x_back": Part(f"back_{fit.x_form or 'plain'}"),
         "y_back": Part(f"back_{fit.y_form or 'plain'}"),
