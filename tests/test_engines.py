@@ -32,12 +32,24 @@ from .test_export import DAYS, SPEC_TWO_FITS, build_lab, day_cells, reference, s
 pytestmark = [pytest.mark.engines, pytest.mark.slow]
 
 #: Every companion view of a fit: a limit to cross, a horizon, a window per day; and a
-#: second fit through the origin with a limit (its fit, moments, points and crossing views).
+#: second fit through the origin with a limit (its fit, moments, points and crossing views);
+#: a third fit of forms of a computed column, with a row filter.
 ENGINE_SPEC = SPEC + """limit = 2.9
 horizon = 40
 window = "day"
 min_r2 = 0.9
 """ + SPEC_TWO_FITS[len(SPEC):] + """limit = 1.0
+
+[source.computed]
+loss = "3.1 - capacity_ah / 1"
+
+[[fit]]
+name = "forms"
+group = ["cell"]
+x = "log10(cycle)"
+y = "ln(loss)"
+where = "cycle > 1"
+limit = 0.5
 """
 
 
@@ -111,6 +123,8 @@ def check_views(exported: Exported, dialect: str, fetch: Any) -> None:
     assert {f"fit_fade{s}" for s in ("", "_moments", "_windows", "_points", "_change",
                                      "_crossing", "_full", "_full_moments",
                                      "_fleet_units")} <= set(names)
+    assert {f"fit_forms{s}" for s in ("", "_moments", "_points", "_crossing", "_full")} \
+        <= set(names)
     for name in names:
         columns, rows = want[name]
         got_columns, got = fetch(name)
