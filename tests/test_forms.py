@@ -342,3 +342,27 @@ def test_report_draws_the_fit_scale_and_names_it(tmp_path: Path) -> None:
     # the table gives the crossing in cycle's own units, as the crossing view does
     assert f"{crossing.loc['a', 'cross_x']:.4g}"[:4] in text
     assert "the crossings below are in cycle's own units" in text
+
+
+def test_changing_the_form_is_a_recorded_spec_change(tmp_path: Path) -> None:
+    lab = Lab(tmp_path / "lab", HEAD + _fit("decay", "cycle", "value"))
+    rows = [(float(t), 50.0 * math.exp(-0.03 * t) * (1 + 0.01 * (-1) ** int(t)))
+            for t in range(12)]
+    lab.write("in/2026-03-02/a.csv", "cycle,value\n" + "".join(f"{a!r},{b!r}\n" for a, b in rows))
+    with lab.init() as led:
+        led.append()
+    lab.spec.write_text(HEAD + _fit("decay", "cycle", "ln(value)"), encoding="utf-8")
+    with lab.open() as led:
+        change = led.update_spec(lab.spec, note="first-order loss")
+        fit = led.fits("decay")
+    assert change.changed_fits == ["decay"]
+    # statsmodels OLS of ln(value) on the same rows
+    res = sm.OLS(np.log([b for _, b in rows]), sm.add_constant([a for a, _ in rows])).fit()
+    assert fit["slope"].iloc[0] == pytest.approx(res.params[1], rel=1e-9)
+    with lab.open(read_only=True) as led:
+        history = led.con.execute(
+            "SELECT spec, note FROM tl_spec_history ORDER BY version").fetchall()
+        assert led.spec.fit("decay").shown("y") == "ln(value)"
+    # the stored spec keeps both choices, the change with its note
+    assert 'y = "value"' in history[0][0] and 'y = "ln(value)"' in history[-1][0]
+    assert history[-1][1] == "first-order loss"
