@@ -129,6 +129,13 @@ def check_views(exported: Exported, dialect: str, fetch: Any) -> None:
         columns, rows = want[name]
         got_columns, got = fetch(name)
         assert got_columns == columns, name
+        if name.startswith("fit_forms"):
+            # each engine's ln and log10 may round the last bit differently, so the low parts
+            # of the means (themselves rounding errors, about 1e-17) differ; every other
+            # column is compared as for plain fits
+            low = [i for i, c in enumerate(columns) if c in ("x_mean_lo", "y_mean_lo")]
+            rows = [tuple(None if i in low else v for i, v in enumerate(r)) for r in rows]
+            got = [tuple(None if i in low else v for i, v in enumerate(r)) for r in got]
         same_rows(rows, got, columns, f"{dialect} {name}")
 
 
