@@ -113,9 +113,10 @@ def exact_sums(xs: list[Fraction], ys: list[Fraction]) -> tuple:
 
 
 def test_rss_merge_identity_in_exact_arithmetic() -> None:
-    # The identities of sql/moments/merge.sql and merge_origin.sql, checked in exact rational
-    # arithmetic (fractions.Fraction) on random small sets, constant x and single points
-    # included: merging the sums of A and B gives the sums of A and B together.
+    # The identities of sql/moments/merge.sql (with an intercept and through the origin),
+    # checked in exact rational arithmetic (fractions.Fraction) on random small sets, constant
+    # x and single points included: merging the sums of A and B gives the sums of A and B
+    # together.
     rng = random.Random(11)
 
     def points(k: int) -> tuple[list[Fraction], list[Fraction]]:

@@ -410,6 +410,18 @@ def test_overview_marks_alerting_groups_by_shape_and_names_them() -> None:
     assert len(by_gid(ax, "reference")) == 1
 
 
+def test_overview_keeps_a_far_reference_line_in_the_frame() -> None:
+    # r2 of through-origin fits clusters within 1e-6 of 1: the min_r2 line far to the left
+    # used to be captioned millions of pixels off the figure, and rendering failed.
+    x = [1 - 1e-7, 1 - 2e-7, 1 - 3e-7]
+    drawn = plots.overview(x, [-0.01, -0.02, -0.011], ["c0", "c1", "c2"], alerting=["c1"],
+                           x_line=(0.9, "min_r2 0.9"))
+    ax = drawn.figure.axes[0]
+    lo, hi = ax.get_xlim()
+    assert lo < 0.9 < hi and lo < min(x) and max(x) < hi
+    assert drawn.png()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
 def test_palette_parts_in_greyscale() -> None:
     def lightness(colour: str) -> float:
         # CIE L* from sRGB (IEC 61966-2-1 transfer function, D65 white), from memory.

@@ -22,6 +22,10 @@
 -- x_mean + x_mean_lo: dx and dy take both, and the new mean's rounding error (Knuth's two-sum)
 -- goes to its low part, so merge after merge the means stay as exact as one two-pass mean
 -- (far from zero, rounding a mean to float64 costs eps |mean|, much more than the spread's).
+-- For a fit through the origin (the slot __line__ holds sql/parts/line_origin.sql) the sums are
+-- about the origin and simply add up: the weight w is 0, which leaves sxx = sxxA + sxxB (and so
+-- on) and the correction sxxA sxxB (bA - bB)^2 / sxx, again exact; the means are plain, with no
+-- low parts.
 -- Group columns must not be named like a working column (na, nb, xa ... ylb, f, w, dx, dy, ba,
 -- bb, x_sum, x_part, x_low, y_sum, y_part, y_low, correction).
 CREATE OR REPLACE TEMP TABLE tl_mmerged AS
@@ -61,7 +65,8 @@ steps AS (
     SELECT
         *,
         CAST(nb AS DOUBLE) / (na + nb) AS f,
-        na * (CAST(nb AS DOUBLE) / (na + nb)) AS w,
+        -- __line__.pool_weight: w, or 0 for sums about the origin
+        __line__.pool_weight AS w,
         (xb - xa) + (xlb - xla) AS dx,
         (yb - ya) + (ylb - yla) AS dy,
         -- a side's slope; 0 when its sxx is 0, where its terms vanish anyway
@@ -108,8 +113,8 @@ SELECT
     na + nb AS n,
     n_rows,
     n_outside,
-    x_sum + x_low AS x_mean,
-    y_sum + y_low AS y_mean,
+    __line__.pooled_x_mean AS x_mean,
+    __line__.pooled_y_mean AS y_mean,
     sxx,
     sxy,
     syy,
@@ -120,8 +125,8 @@ SELECT
     y_max,
     ea + eb + pow(2.0, -46) * sqrt(correction * syy) AS rss_noise,
     -- what the rounded mean leaves out (fast two-sum)
-    x_low - ((x_sum + x_low) - x_sum) AS x_mean_lo,
-    y_low - ((y_sum + y_low) - y_sum) AS y_mean_lo
+    __line__.pooled_x_low AS x_mean_lo,
+    __line__.pooled_y_low AS y_mean_lo
 FROM fix
 UNION ALL
 -- one side has no counted pairs: the other side's sums, and the rows of both

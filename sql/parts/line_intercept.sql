@@ -18,6 +18,15 @@
 --   r2_adj_ok       r2_adj of an ok fit: 1 - rss / syy (n - 1) / (n - 2)
 --   intercept_se    s sqrt(1 / n + x_mean^2 / sxx)
 --   df_of_g         n - 2 of the group read as g
+--   params          2, the parameters of the line (intercept and slope)
+--   centred         1.0: sums pooled from parts add the spread of the parts' means
+--                   (change.sql; 0.0 through the origin)
+--   no_x_spread     the status of a line whose x are all the same: 'constant_x'
+--   pool_weight     merging two sets of sums (sql/moments/merge.sql): the weight w = nA nB / n of
+--                   the squared distance between their means that the pooled centred sums add
+--   pooled_x_mean, pooled_y_mean, pooled_x_low, pooled_y_low
+--                   the merged mean x_sum + x_low (kept in two parts) and what its rounding
+--                   leaves for the low part
 SELECT
     CASE WHEN n >= 2 AND x_min < x_max THEN sxy / sxx END AS b_ls,
     b_ls * sxy AS ss_line,
@@ -50,4 +59,12 @@ SELECT
     n - 3 AS df_without,
     CASE WHEN isfinite(r_int * r_int * h / (2 * (1 - h))) THEN r_int * r_int * h / (2 * (1 - h))
     END AS cook_distance,
-    'constant_y' AS no_spread
+    'constant_y' AS no_spread,
+    na * (CAST(nb AS DOUBLE) / (na + nb)) AS pool_weight,
+    x_sum + x_low AS pooled_x_mean,
+    y_sum + y_low AS pooled_y_mean,
+    x_low - ((x_sum + x_low) - x_sum) AS pooled_x_low,
+    y_low - ((y_sum + y_low) - y_sum) AS pooled_y_low,
+    2 AS params,
+    1.0 AS centred,
+    'constant_x' AS no_x_spread

@@ -19,6 +19,12 @@
 --   r2_adj_ok       r2_adj of an ok fit: 1 - rss / sum(y^2) n / (n - 1)
 --   intercept_se    NULL
 --   df_of_g         n - 1 of the group read as g
+--   params          1, the parameters of the line (the slope)
+--   centred         0.0: sums about the origin pooled from parts simply add up
+--   no_x_spread     the status of a line whose x are all 0: 'x_all_zero'
+--   pool_weight     0: sums about the origin add up as they are, whatever the means
+--   pooled_x_mean, pooled_y_mean, pooled_x_low, pooled_y_low
+--                   the merged plain means and low parts 0 (the line uses no means)
 SELECT
     CASE WHEN sxx > 0 THEN sxy / sxx END AS b_ls,
     b_ls * b_ls * sxx AS ss_line,
@@ -51,4 +57,12 @@ SELECT
     CASE
         WHEN h < 1 AND isfinite(r_int * r_int * h / (1 - h)) THEN r_int * r_int * h / (1 - h)
     END AS cook_distance,
-    'y_all_zero' AS no_spread
+    'y_all_zero' AS no_spread,
+    0.0 AS pool_weight,
+    x_sum AS pooled_x_mean,
+    y_sum AS pooled_y_mean,
+    0.0 AS pooled_x_low,
+    0.0 AS pooled_y_low,
+    1 AS params,
+    0.0 AS centred,
+    'x_all_zero' AS no_x_spread

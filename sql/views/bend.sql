@@ -40,25 +40,12 @@ WITH groups AS MATERIALIZED (
     FROM __fit_view__ AS f
 ),
 rounds AS (
+    -- every column of the rounds view, with the group's number and short names for two
     SELECT
         g.gid,
         o.round AS r,
         o.significant AS sig,
-        o.bend_x,
-        o.bend_f,
-        o.bend_p,
-        o.slope_before,
-        o.slope_after,
-        o.line_n,
-        o.line_intercept,
-        o.line_r2,
-        o.line_sd,
-        o.line_slope_se,
-        o.line_df,
-        o.centre_x,
-        o.centre_y,
-        o.centre_se,
-        o.exact
+        o.*
     FROM __bend_rounds_view__ AS o
     JOIN groups AS g ON ROW(o.__group__) IS NOT DISTINCT FROM ROW(g.__group__)
 ),

@@ -23,83 +23,38 @@
 -- exact, with no series or quantile macro. (For other df1 the tail would be the regularised
 -- incomplete beta function that the Student t macros evaluate; df1 is always 2 here.)
 --
--- Numerics. Each side is summed in two passes like the moments view (anchored compensated sums,
--- residuals against a first slope). The pooled line comes from the two sides' sums, and
+-- Numerics. Each side is summed by the moments' own fragment __sums__ keyed by group and side
+-- (sql/fragments/sums_intercept.sql: anchored compensated sums, residuals against a first slope). The pooled line comes from the two sides' sums, and
 -- rss_one - rss_two splits exactly into sums of squares that do not cancel: with B the pooled
 -- slope, X, Y the pooled means and dx_k = x_mean_k - X, dy_k = y_mean_k - Y,
 --     rss_one - rss_two = sum over the sides of (slope_k - B)^2 sxx_k + n_k (dy_k - B dx_k)^2.
 CREATE OR REPLACE MACRO __view__(tl_at) AS TABLE
-WITH pairs AS (
-    SELECT
-        __group__,
-        CASE WHEN isfinite(CAST(__x__ AS DOUBLE)) AND isfinite(CAST(__y__ AS DOUBLE))
-            THEN CAST(__x__ AS DOUBLE) END AS px,
-        CASE WHEN isfinite(CAST(__x__ AS DOUBLE)) AND isfinite(CAST(__y__ AS DOUBLE))
-            THEN CAST(__y__ AS DOUBLE) END AS py
+WITH sided AS NOT MATERIALIZED (
+    -- the pairs that count, each on its side of the given x
+    SELECT *, CAST(__x__ AS DOUBLE) >= tl_at AS tl_above
     FROM __source__
+    WHERE isfinite(CAST(__x__ AS DOUBLE)) AND isfinite(CAST(__y__ AS DOUBLE))
 ),
-sides AS (
-    SELECT __group__, px, py, px >= tl_at AS above
-    FROM pairs
-    WHERE px IS NOT NULL
-),
-pass1 AS (
-    SELECT
-        __group__,
-        above,
-        row_number() OVER () AS sid,
-        CAST(count(*) AS BIGINT) AS n,
-        min(px) AS x_min,
-        max(px) AS x_max,
-        avg(px) AS x0,
-        avg(py) AS y0,
-        coalesce(CASE WHEN isfinite(regr_slope(py, px)) THEN regr_slope(py, px) END, 0.0) AS b1
-    FROM sides
-    GROUP BY __group__, above
-),
-pass2 AS (
-    SELECT
-        g.sid,
-        fsum(p.px - g.x0) AS sum_dx,
-        fsum(p.py - g.y0) AS sum_dy,
-        fsum((p.px - g.x0) * (p.px - g.x0)) AS sum_dxx,
-        fsum((p.px - g.x0) * (p.py - g.y0)) AS sum_dxy,
-        fsum((p.py - g.y0) * (p.py - g.y0)) AS sum_dyy,
-        fsum(((p.py - g.y0) - g.b1 * (p.px - g.x0)) * ((p.py - g.y0) - g.b1 * (p.px - g.x0)))
-            AS sum_ee
-    FROM sides AS p
-    JOIN pass1 AS g
-        ON ROW(p.__group__) IS NOT DISTINCT FROM ROW(g.__group__) AND p.above = g.above
-    GROUP BY g.sid
-),
-side AS (
-    SELECT
-        g.__group__,
-        g.above,
-        g.n,
-        g.x_min < g.x_max AS spread,
-        g.x0 + s.sum_dx / g.n AS x_mean,
-        g.y0 + s.sum_dy / g.n AS y_mean,
-        CASE WHEN g.x_min < g.x_max THEN s.sum_dxx - s.sum_dx * s.sum_dx / g.n END AS sxx,
-        CASE WHEN g.x_min < g.x_max THEN s.sum_dxy - s.sum_dx * s.sum_dy / g.n END AS sxy,
-        s.sum_ee - (s.sum_dy - g.b1 * s.sum_dx) * (s.sum_dy - g.b1 * s.sum_dx) / g.n AS rss_b1,
-        g.b1,
-        -- rounding error bound of this side's rss, as in the moments view
-        pow(2.0, -46) * sqrt(s.sum_ee * s.sum_dyy) AS rss_noise
-    FROM pass1 AS g
-    JOIN pass2 AS s USING (sid)
+sums AS MATERIALIZED (
+    SELECT * FROM __sums__ AS sided
 ),
 lines AS (
     SELECT
-        *,
-        CASE WHEN sxx > 0 THEN sxy / sxx END AS slope,
-        CASE
-            WHEN sxx > 0 THEN greatest(rss_b1 - (sxy / sxx - b1) * (sxy / sxx - b1) * sxx, 0.0)
-        END AS rss
-    FROM side
+        __group__,
+        tl_above AS above,
+        n,
+        x_min < x_max AS spread,
+        x_mean,
+        y_mean,
+        CASE WHEN x_min < x_max THEN sxx END AS sxx,
+        CASE WHEN x_min < x_max THEN sxy END AS sxy,
+        CASE WHEN x_min < x_max AND sxx > 0 THEN sxy / sxx END AS slope,
+        CASE WHEN x_min < x_max AND sxx > 0 THEN rss END AS rss,
+        rss_noise
+    FROM sums
 ),
 groups AS (
-    SELECT DISTINCT __group__ FROM pairs
+    SELECT DISTINCT __group__ FROM __source__
 ),
 paired AS (
     SELECT

@@ -37,6 +37,13 @@
 -- squares about that line splits exactly into three sums of squares, none cancelling:
 --     rss = sum(rss_i) + sum((slope_i - slope_before)^2 sxx_i) + sum(n_i (dy_i - slope_before dx_i)^2)
 -- where a window with sxx_i = 0 adds no second term (its rss_i is its syy_i).
+--
+-- Through the origin (the slot __line__ holds sql/parts/line_origin.sql) the windows' sums are
+-- about the origin and simply add up: __line__.centred = 0 drops the terms in the means, so
+-- sxx = sum(sxx_i), sxy = sum(sxy_i) and
+-- rss = sum(rss_i) + sum((slope_i - slope_before)^2 sxx_i), again exact; each line has one
+-- parameter (__line__.params), so the degrees of freedom above read n - 1 for n - 2, and
+-- 'x constant' means every x is 0.
 CREATE OR REPLACE VIEW __view__ AS
 WITH windows AS MATERIALIZED (
     SELECT
@@ -83,8 +90,10 @@ means AS (
 spread AS (
     SELECT
         e.lid,
-        fsum(e.sxx) + fsum(e.n * (e.x_mean - m.x_all) * (e.x_mean - m.x_all)) AS sxx,
-        fsum(e.sxy) + fsum(e.n * (e.x_mean - m.x_all) * (e.y_mean - m.y_all)) AS sxy
+        fsum(e.sxx) + __line__.centred * fsum(e.n * (e.x_mean - m.x_all) * (e.x_mean - m.x_all))
+            AS sxx,
+        fsum(e.sxy) + __line__.centred * fsum(e.n * (e.x_mean - m.x_all) * (e.y_mean - m.y_all))
+            AS sxy
     FROM earlier AS e
     JOIN means AS m USING (lid)
     GROUP BY e.lid
@@ -106,8 +115,10 @@ residual AS (
         e.lid,
         fsum(e.rss)
         + fsum(coalesce((e.slope_i - l.slope_before) * (e.slope_i - l.slope_before) * e.sxx, 0.0))
-        + fsum(e.n * ((e.y_mean - l.y_all) - l.slope_before * (e.x_mean - l.x_all))
-            * ((e.y_mean - l.y_all) - l.slope_before * (e.x_mean - l.x_all))) AS rss
+        + __line__.centred * fsum(
+            e.n * ((e.y_mean - l.y_all) - l.slope_before * (e.x_mean - l.x_all))
+            * ((e.y_mean - l.y_all) - l.slope_before * (e.x_mean - l.x_all))
+        ) AS rss
     FROM earlier AS e
     JOIN line AS l USING (lid)
     GROUP BY e.lid
@@ -120,7 +131,8 @@ before AS (
         l.sxx,
         l.slope_before,
         CASE
-            WHEN l.n_before >= 3 AND l.sxx > 0 THEN sqrt(r.rss / (l.n_before - 2) / l.sxx)
+            WHEN l.n_before > __line__.params AND l.sxx > 0
+                THEN sqrt(r.rss / (l.n_before - __line__.params) / l.sxx)
         END AS slope_before_se
     FROM line AS l
     JOIN residual AS r USING (lid)
@@ -150,10 +162,10 @@ tested AS (
         CASE
             WHEN n_before IS NULL THEN 'no earlier window'
             WHEN broken > 0 THEN 'sums out of range'
-            WHEN n_before < 3 THEN 'too few points before'
+            WHEN n_before <= __line__.params THEN 'too few points before'
             WHEN NOT sxx_before > 0 THEN 'x constant before'
-            WHEN n_recent < 3 THEN 'too few points recently'
-            WHEN status_recent = 'constant_x' THEN 'x constant recently'
+            WHEN n_recent <= __line__.params THEN 'too few points recently'
+            WHEN status_recent = __line__.no_x_spread THEN 'x constant recently'
             WHEN slope_recent_se IS NULL OR slope_before_se IS NULL OR NOT isfinite(v)
                 THEN 'sums out of range'
             WHEN v = 0 THEN 'both lines fit exactly'
@@ -168,9 +180,9 @@ welch AS (
         CASE
             WHEN why_not IS NULL THEN 1 / (
                 (slope_recent_se * slope_recent_se / v) * (slope_recent_se * slope_recent_se / v)
-                    / (n_recent - 2)
+                    / (n_recent - __line__.params)
                 + (slope_before_se * slope_before_se / v) * (slope_before_se * slope_before_se / v)
-                    / (n_before - 2)
+                    / (n_before - __line__.params)
             )
         END AS df
     FROM tested

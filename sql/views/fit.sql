@@ -4,13 +4,12 @@
 
 -- A pair (x, y) counts when both values are present and finite (NULL, NaN and infinity are
 -- skipped); a group whose pairs are all skipped still gets a row, with n = 0. A NULL group key
--- is a group like any other. Group columns must not be named like a column of this view or a
--- working column (gid, b_ls, rss_all, rss_ls, ss_line, stage, t_crit) or a column of the
--- moments view.
+-- is a group like any other. Group columns must not be named like a column of this view or of
+-- the moments view (the spec refuses such names).
 --
 -- n_outside (last column) counts the rows of the group whose x and y are present and finite
 -- but outside the domain of the fit's form of x or y (x = "ln(col)" ...): left out like a
--- missing value. With a form, the line, r2, the slope and the intervals are on the form's scale.
+-- missing value. With a form, the line, r2, the slope and the intercept are on the form's scale.
 --
 -- status, first matching rule wins:
 --   too_few_points  n < 3. With n = 2 and two different x the line through the two points is
@@ -27,6 +26,9 @@
 --                   error of its own float64 computation. resid_sd and standard errors are 0,
 --                   r2 = r2_adj = 1, intervals have zero width, slope_t and slope_p are NULL.
 --   ok              every statistic is defined.
+--
+-- The statistics come from the fragment __line_stats__ (sql/fragments/line_stats.sql), the same
+-- that the windows view applies per window.
 --
 -- Numerics. The sums come from the moments view of the same fit (moments.sql: count, means,
 -- ranges, the centred sums sxx and sxy and the residual sum of squares rss of the least-squares
@@ -58,103 +60,12 @@ WITH sums AS MATERIALIZED (
         y_mean,
         sxx,
         sxy,
-        rss AS rss_all,
+        rss,
         rss_noise
     FROM __moments_view__
 ),
-line AS (
-    SELECT
-        gid,
-        n,
-        x_min,
-        x_max,
-        y_min,
-        y_max,
-        x_mean,
-        y_mean,
-        sxx,
-        sxy,
-        rss_noise,
-        __line__.b_ls AS b_ls,
-        CASE WHEN __line__.has_df THEN rss_all END AS rss_ls
-    FROM sums
-),
-spread AS (
-    SELECT
-        *,
-        -- explained and total sum of squares, syy = ss_line + rss: no cancellation
-        __line__.ss_line AS ss_line,
-        __line__.syy AS syy
-    FROM line
-),
-quantiles AS MATERIALIZED (
-    -- one t quantile per group size, not per group: the macro is costly to plan and to run
-    SELECT n, tl_t_crit((1 - __level__) / 2, __line__.df) AS t_crit
-    FROM (SELECT DISTINCT n FROM sums WHERE __line__.has_df) AS sizes
-),
-classified AS (
-    SELECT
-        *,
-        __line__.stage AS stage
-    FROM spread
-),
-estimates AS (
-    SELECT
-        gid,
-        n,
-        stage,
-        x_mean,
-        sxx,
-        __line__.fit_slope AS slope,
-        __line__.fit_intercept AS intercept,
-        CASE
-            WHEN stage = 'ok' THEN rss_ls
-            WHEN stage IN (__line__.no_spread, 'perfect_fit') THEN 0.0
-        END AS rss,
-        CASE
-            WHEN stage = 'ok' THEN ss_line / syy
-            WHEN stage = 'perfect_fit' THEN 1.0
-            WHEN stage = 'too_few_points' AND b_ls IS NOT NULL AND __line__.has_spread THEN 1.0
-        END AS r2,
-        CASE
-            WHEN stage = 'ok' THEN __line__.r2_adj_ok
-            WHEN stage = 'perfect_fit' THEN 1.0
-        END AS r2_adj,
-        t_crit
-    FROM classified
-    LEFT JOIN quantiles USING (n)
-),
-errors AS (
-    SELECT
-        *,
-        sqrt(rss / __line__.df) AS resid_sd,
-        sqrt(rss / __line__.df / sxx) AS slope_se,
-        __line__.intercept_se AS intercept_se
-    FROM estimates
-),
-intervals AS (
-    SELECT
-        *,
-        CASE WHEN stage = 'ok' THEN slope / slope_se END AS slope_t,
-        slope - t_crit * slope_se AS slope_lo,
-        slope + t_crit * slope_se AS slope_hi,
-        intercept - t_crit * intercept_se AS intercept_lo,
-        intercept + t_crit * intercept_se AS intercept_hi
-    FROM errors
-),
-verdict AS (
-    -- greatest() skips NULLs and returns NaN or inf if any argument is one
-    SELECT
-        gid,
-        CASE
-            WHEN coalesce(isfinite(greatest(
-                abs(slope), abs(intercept), abs(r2), abs(r2_adj), resid_sd, slope_se,
-                intercept_se, abs(slope_t), abs(slope_lo), abs(slope_hi), abs(intercept_lo),
-                abs(intercept_hi)
-            )), true) THEN stage
-            ELSE 'out_of_range'
-        END AS status
-    FROM intervals
+stats AS MATERIALIZED (
+    SELECT * FROM __line_stats__ AS sums
 )
 SELECT
     g.__group__,
@@ -169,14 +80,12 @@ SELECT
     f.slope_se,
     f.intercept_se,
     f.slope_t,
-    CASE WHEN f.slope_t IS NOT NULL THEN tl_t_two_sided(f.slope_t, __line__.df_of_g) END AS slope_p,
+    f.slope_p,
     f.slope_lo,
     f.slope_hi,
     f.intercept_lo,
     f.intercept_hi,
-    v.status,
+    f.status,
     g.n_outside
 FROM sums AS g
-JOIN verdict AS v ON v.gid = g.gid
--- a row out of range keeps its status and count but no statistics
-LEFT JOIN intervals AS f ON f.gid = g.gid AND v.status <> 'out_of_range'
+JOIN stats AS f ON f.gid = g.gid

@@ -19,7 +19,7 @@
 -- A group whose pairs are all skipped has n = 0 and NULL sums, means and ranges.
 -- For a fit through the origin sxx = sum(x^2), sxy = sum(xy), syy = sum(y^2), so that
 -- slope = sxy / sxx as with an intercept; rss is that of the line through the origin
--- (sql/moments/merge_origin.sql, moments_full_origin.sql).
+-- (sql/moments/merge.sql with the slot __line__ of the origin, sql/fragments/sums_origin.sql).
 --
 -- The view reads a stored table with one row per group, so it costs the same however long the
 -- history: every append merges the sums of its new rows into the table (Chan, Golub and LeVeque

@@ -271,7 +271,9 @@ def overview(
         ax.scatter(xs[ring], ys[ring], marker="o", s=150, facecolor="none", edgecolor=RUST,
                    linewidth=1.4, zorder=5, gid="groups-unlike")
     if len(xs):
-        ax.set_xlim(*_padded(xs))
+        # the reference line stays in the frame: a caption drawn far outside it would be
+        # rendered at an absurd pixel position (and uncentred r2 values cluster near 1)
+        ax.set_xlim(*_padded(xs if x_line is None else np.append(xs, x_line[0])))
         ax.set_ylim(*_padded(ys, 0.1))
     if x_line is not None:
         ax.axvline(x_line[0], color=GREY, linestyle=":", linewidth=1.1, gid="reference")

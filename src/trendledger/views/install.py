@@ -23,7 +23,11 @@ __all__ = ["KINDS", "fit_values", "template_for", "plan", "install", "listing", 
 
 #: moments.py: placeholder values a kind takes from another (the full fit renders fit.sql over
 #: the full moments view instead of the stored moments).
-KIND_VALUES: dict[str, dict[str, str]] = {"full": {"moments_view": "full_moments_view"}}
+#: The windows and break views sum rows per group and window, or per group and side of the
+#: break, through the same fragment as the moments (__sums__ keyed by __key__).
+KIND_VALUES: dict[str, dict[str, str]] = {"full": {"moments_view": "full_moments_view"},
+                                          "windows": {"key": "window_key_group"},
+                                          "break": {"key": "side_group"}}
 
 #: Outside the store (an export read by another engine) there are no stored sums. There the
 #: full moments view comes first, the moments view reads it instead of the stored table, the
@@ -37,7 +41,7 @@ TABLE_MACROS = frozenset({"break"})
 #: Kinds whose statistics assume a line with an intercept: a fit through the origin gets them
 #: only from an ``_origin`` twin of the template, never from the plain one. A kind missing here
 #: takes the fit's line from the slots ``__line__`` and ``__cross__`` (sql/parts/).
-INTERCEPT_ONLY = frozenset({"windows", "bend_rounds", "bend", "change", "break", "alerts", "fleet",
+INTERCEPT_ONLY = frozenset({"bend_rounds", "bend", "break", "alerts", "fleet",
                             "fleet_units"})
 
 

@@ -31,6 +31,8 @@ from __future__ import annotations
 
 import hashlib
 from collections.abc import Iterable, Sequence
+from dataclasses import dataclass
+from functools import cache
 from typing import Any
 
 import duckdb
@@ -59,11 +61,6 @@ def table_names(spec: Spec, fit: Fit) -> tuple[str, str]:
     return str(values["moments_table"]), str(values["fit_table"])
 
 
-def _values(spec: Spec, fit: Fit, source: str) -> dict[str, Any]:
-    values = views.fit_values(spec, fit)
-    return {**values, "source": source, "table": values["moments_table"]}
-
-
 def _materialised(statements: list[str], table: str) -> list[str]:
     """A view template's statements with its CREATE VIEW turned into CREATE TEMPORARY TABLE
     ``table`` AS the same query: the rows are computed once, where they are needed."""
@@ -79,46 +76,86 @@ def _materialised(statements: list[str], table: str) -> list[str]:
     return out
 
 
-#: Rendered statements by (spec hash, fit, what, source): rendering and parsing the long
-#: templates costs more than running them on a small batch.
-_RENDERED: dict[tuple[str, Fit, str, str], list[str]] = {}
-
-
-def _calc_sql(spec: Spec, fit: Fit, source: str) -> list[str]:
-    """The full moments view's two passes over ``source``, into the temporary table tl_mbatch."""
-    key = (spec.digest, fit, "calc", source)
-    if key not in _RENDERED:
-        tpl = templates.load(views.template_for(fit, "moments_full"))
-        values = {**_values(spec, fit, source), "view": BATCH}
-        _RENDERED[key] = _materialised(tpl.render(values), BATCH)
-    return _RENDERED[key]
-
-
-def _fit_sql(spec: Spec, fit: Fit, sums: str) -> list[str]:
-    """fit.sql over the sums in ``sums``, into the temporary table
-    tl_mfitted."""
-    key = (spec.digest, fit, "fit", sums)
-    if key not in _RENDERED:
-        tpl = templates.load(views.template_for(fit, "fit"))
-        values = {**views.fit_values(spec, fit), "moments_view": sums, "view": FITTED}
-        _RENDERED[key] = _materialised(tpl.render(values), FITTED)
-    return _RENDERED[key]
-
-
-def _merge_file(fit: Fit) -> str:
-    return "moments/merge_origin.sql" if fit.through_origin else "moments/merge.sql"
-
-
 def _render(relative: str, values: dict[str, Any]) -> list[str]:
     tpl = templates.load(relative)
-    used = {k: values[k] for k in tpl.placeholders if k in values}
-    key = (relative, repr(sorted(used.items())))
-    if key not in _SMALL:
-        _SMALL[key] = tpl.render(used)
-    return _SMALL[key]
+    return tpl.render({k: values[k] for k in tpl.placeholders if k in values})
 
 
-_SMALL: dict[tuple[str, str], list[str]] = {}
+@cache
+def _fixed(name: str) -> tuple[str, ...]:
+    """A statement file of sql/moments/ without placeholders, rendered once."""
+    return tuple(_render(f"moments/{name}.sql", {}))
+
+
+@dataclass(frozen=True)
+class Plan:
+    """Every statement that keeps one fit's tables current, rendered once per spec.
+
+    The spec is read here and nowhere else in this module: an append, a retract or a
+    rebuild runs the plan's statements (in the order ``update`` and ``build`` give), so the
+    templates are parsed and filled once per fit and spec, not on every call.
+    """
+
+    #: two-pass sums of every stored row, of the rows in tl_mrows (both into tl_mbatch)
+    sum_all: tuple[str, ...]
+    sum_rows: tuple[str, ...]
+    #: build the sums table from tl_mbatch; merge tl_mbatch into it; write the merged rows
+    build: tuple[str, ...]
+    merge: tuple[str, ...]
+    apply: tuple[str, ...]
+    #: list the groups touched (tl_mkeys); collect rows of removed files' groups or of added
+    #: files into tl_mrows; collect the touched groups' stored sums (tl_msums)
+    keys: tuple[str, ...]
+    stale: tuple[str, ...]
+    rows: tuple[str, ...]
+    refit: tuple[str, ...]
+    #: fit.sql over the whole sums table or over tl_msums (into tl_mfitted), then written
+    fit_all: tuple[str, ...]
+    fit_sums: tuple[str, ...]
+    build_fit: tuple[str, ...]
+    apply_fit: tuple[str, ...]
+    #: hashes of what builds and updates the sums and the statistics (a change rebuilds)
+    sums_digest: str
+    fit_digest: str
+
+
+_PLANS: dict[tuple[str, Fit], Plan] = {}
+
+
+def plan(spec: Spec, fit: Fit) -> Plan:
+    """The fit's plan, rendered on first use for this spec (a spec change has another
+    digest, hence another plan)."""
+    key = (spec.digest, fit)
+    if key not in _PLANS:
+        values = views.fit_values(spec, fit)
+        table = {**values, "table": values["moments_table"]}
+        full = templates.load(views.template_for(fit, "moments_full"))
+        fit_tpl = templates.load(views.template_for(fit, "fit"))
+
+        def sums_of(source: str) -> tuple[str, ...]:
+            return tuple(_materialised(full.render({**values, "source": source, "view": BATCH}),
+                                       BATCH))
+
+        def fit_of(sums: str) -> tuple[str, ...]:
+            return tuple(_materialised(
+                fit_tpl.render({**values, "moments_view": sums, "view": FITTED}), FITTED))
+
+        def render(name: str) -> tuple[str, ...]:
+            return tuple(_render(f"moments/{name}.sql", table))
+
+        parts = dict(sum_all=sums_of("measurements"), sum_rows=sums_of(ROWS),
+                     build=render("build"), merge=render("merge"), apply=render("apply"),
+                     keys=render("keys"), stale=render("stale"), rows=render("rows"),
+                     refit=render("refit"), fit_all=fit_of(str(values["moments_table"])),
+                     fit_sums=fit_of(SUMS), build_fit=render("build_fit"),
+                     apply_fit=render("apply_fit"))
+        macros = [sql for tpl in templates.load_dir("macros") for sql in tpl.render({})]
+        sums_digest = _hash([*parts["sum_all"], *parts["build"], *parts["merge"],
+                             *parts["apply"], *parts["stale"]])
+        fit_digest = _hash([*parts["fit_all"], *macros, *parts["build_fit"],
+                            *parts["apply_fit"]])
+        _PLANS[key] = Plan(**parts, sums_digest=sums_digest, fit_digest=fit_digest)
+    return _PLANS[key]
 
 
 def _run(con: duckdb.DuckDBPyConnection, statements: Iterable[str],
@@ -136,30 +173,23 @@ def _hash(parts: Iterable[str]) -> str:
 def digests(spec: Spec, fit: Fit) -> tuple[str, str]:
     """Hashes of the SQL that builds and updates a fit's sums and its statistics: a change
     rebuilds the table (the statistics hash covers the Student t macros as well)."""
-    values = _values(spec, fit, "measurements")
-    sums = _hash([*_calc_sql(spec, fit, "measurements"), *_render("moments/build.sql", values),
-                  *_render(_merge_file(fit), values), *_render("moments/apply.sql", values),
-                  *_render("moments/stale.sql", values)])
-    macros = [sql for tpl in templates.load_dir("macros") for sql in tpl.render({})]
-    stats = _hash([*_fit_sql(spec, fit, values["moments_table"]), *macros,
-                   *_render("moments/build_fit.sql", values),
-                   *_render("moments/apply_fit.sql", values)])
-    return sums, stats
+    p = plan(spec, fit)
+    return p.sums_digest, p.fit_digest
 
 
 def _cleanup(con: duckdb.DuckDBPyConnection) -> None:
-    _run(con, _render("moments/cleanup.sql", {}))
+    _run(con, _fixed("cleanup"))
 
 
 def build(con: duckdb.DuckDBPyConnection, spec: Spec, fit: Fit, *, sums: bool = True) -> None:
     """(Re)build a fit's stored sums from every stored row (unless ``sums`` is False) and its
     stored statistics from the sums, inside the caller's transaction."""
-    values = _values(spec, fit, "measurements")
+    p = plan(spec, fit)
     if sums:
-        _run(con, _calc_sql(spec, fit, "measurements"))
-        _run(con, _render("moments/build.sql", values))
-    _run(con, _fit_sql(spec, fit, values["moments_table"]))
-    _run(con, _render("moments/build_fit.sql", values))
+        _run(con, p.sum_all)
+        _run(con, p.build)
+    _run(con, p.fit_all)
+    _run(con, p.build_fit)
     _cleanup(con)
 
 
@@ -169,7 +199,7 @@ def sync(con: duckdb.DuckDBPyConnection, spec: Spec) -> int:
     Runs inside the caller's transaction (views.install), after the Student t macros and
     before the views that read the tables.
     """
-    _run(con, _render("moments/registry.sql", {}))
+    _run(con, _fixed("registry"))
     have = {(fit, kind): (table, digest) for fit, kind, table, digest in con.execute(
         "SELECT fit, kind, table_name, sql_hash FROM tl_moments").fetchall()}
     changed = 0
@@ -214,12 +244,11 @@ def _kept(con: duckdb.DuckDBPyConnection, spec: Spec) -> list[Fit]:
             if (have.get((f.name, "sums")), have.get((f.name, "fit"))) == table_names(spec, f)]
 
 
-def _merge_rows(con: duckdb.DuckDBPyConnection, spec: Spec, fit: Fit) -> None:
+def _merge_rows(con: duckdb.DuckDBPyConnection, p: Plan) -> None:
     """Sum tl_mrows in two passes and merge the sums into the fit's table."""
-    values = _values(spec, fit, ROWS)
-    _run(con, _calc_sql(spec, fit, ROWS))
-    _run(con, _render(_merge_file(fit), values))
-    _run(con, _render("moments/apply.sql", values))
+    _run(con, p.sum_rows)
+    _run(con, p.merge)
+    _run(con, p.apply)
 
 
 def update(
@@ -241,16 +270,15 @@ def update(
     if not added and not removed:
         return
     for fit in _kept(con, spec):
-        values = _values(spec, fit, "measurements")
-        _run(con, _render("moments/keys.sql", values))
+        p = plan(spec, fit)
+        _run(con, p.keys)
         if removed:
-            _run(con, _render("moments/stale.sql", values), {"added": added})
-            _merge_rows(con, spec, fit)
+            _run(con, p.stale, {"added": added})
+            _merge_rows(con, p)
         if added:
-            _run(con, _render("moments/rows.sql", values),
-                 {"lo": added[0], "hi": added[-1], "ids": added})
-            _merge_rows(con, spec, fit)
-        _run(con, _render("moments/refit.sql", values))
-        _run(con, _fit_sql(spec, fit, SUMS))
-        _run(con, _render("moments/apply_fit.sql", values))
+            _run(con, p.rows, {"lo": added[0], "hi": added[-1], "ids": added})
+            _merge_rows(con, p)
+        _run(con, p.refit)
+        _run(con, p.fit_sums)
+        _run(con, p.apply_fit)
     _cleanup(con)

@@ -21,6 +21,9 @@ PREFIX = "tl_"
 
 #: Folders whose templates run with the user's columns in scope.
 FOLDERS = ("views", "parts", "moments")
+#: Fragments that carry the group columns beside their own (the sums, keyed by the group);
+#: the other fragments read only columns of their own making.
+KEYED_FRAGMENTS = ("fragments/sums_intercept.sql", "fragments/sums_origin.sql")
 
 
 @cache
@@ -42,12 +45,12 @@ def view_columns() -> dict[str, tuple[str, ...]]:
 def working_columns() -> frozenset[str]:
     """Every name a template gives a column inside its queries (lower case)."""
     found: set[str] = set()
-    for folder in FOLDERS:
-        for tpl in templates.load_dir(folder):
-            for stmt in tpl.statements:
-                found.update(a.alias.lower() for a in stmt.find_all(exp.Alias))
-                for fn in stmt.find_all(exp.Lambda):
-                    found.update(str(v.name).lower() for v in fn.expressions)
+    scanned = [tpl for folder in FOLDERS for tpl in templates.load_dir(folder)]
+    for tpl in [*scanned, *(templates.load(f) for f in KEYED_FRAGMENTS)]:
+        for stmt in tpl.statements:
+            found.update(a.alias.lower() for a in stmt.find_all(exp.Alias))
+            for fn in stmt.find_all(exp.Lambda):
+                found.update(str(v.name).lower() for v in fn.expressions)
     return frozenset(n for n in found if n and not templates.PLACEHOLDER.match(n))
 
 

@@ -52,6 +52,13 @@ def fit_values(spec: Spec, fit: Fit) -> dict[str, Any]:
         "group_text": [exp.func("coalesce", exp.cast(exp.column(g, quoted=True), "VARCHAR"),
                                 exp.Literal.string("NULL")) for g in fit.group],
         "fit_name": Text(fit.name),
+        # the rows summed by the fragment __sums__ are keyed by __key__: the group, or (a
+        # view's KIND_VALUES) the group and its window or side
+        "key": list(fit.group),
+        "window_key_group": [*fit.group, "tl_window"],
+        "side_group": [*fit.group, "tl_above"],
+        "sums": templates.Fragment("fragments/sums_origin.sql" if fit.through_origin
+                                   else "fragments/sums_intercept.sql"),
         # the column, or its form (views/forms.py): what every view fits
         "x": forms.value(spec, fit.x, fit.x_form, keep),
         "y": forms.value(spec, fit.y, fit.y_form, keep),
@@ -77,6 +84,8 @@ def fit_values(spec: Spec, fit: Fit) -> dict[str, Any]:
                        else Part("window_span") if fit.window_x else None),
         # the line part (sql/parts/): with an intercept, or through the origin
         "line": Part("line_origin" if fit.through_origin else "line_intercept"),
+        # the statistics of a line from its sums (fit.sql per group, windows.sql per window)
+        "line_stats": templates.Fragment("fragments/line_stats.sql"),
         # where the line reaches the limit (sql/parts/): Fieller's ends for either line
         "cross": (Part("cross_origin" if fit.through_origin else "cross_intercept")
                   if fit.limit is not None else None),

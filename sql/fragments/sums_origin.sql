@@ -1,37 +1,36 @@
--- Sums about the origin of every group recomputed from every row in two passes: count, means,
--- sum(x^2), sum(xy), sum(y^2), the residual sum of squares of y = slope x, and the ranges.
-
--- The twin of moments_full.sql for fits through the origin. The columns are those of the centred
--- moments with sxx, sxy and syy taken about the origin instead of the means: sxx = sum(x^2),
--- sxy = sum(xy), syy = sum(y^2), so that slope = sxy / sxx as with an intercept. x_mean and
--- y_mean are the plain means. rss is the residual sum of squares of the least-squares line
--- through the origin, syy - sxy^2 / sxx in exact arithmetic (syy itself when sxx = 0), never
--- negative; rss_noise bounds its rounding error; sxy and syy are exactly 0 when every y is 0.
--- A pair (x, y) counts when both values are present and finite; n_rows counts every row of the
--- group; a group whose pairs are all skipped has n = 0 and NULL sums. Group columns must not be
--- named like a column of this view or a working column (px, py, gid, b1, b_ls, zero_y).
+-- Sums about the origin of each key's pairs, in two passes: the columns of sums_intercept.sql
+-- for a fit through the origin (one row per key of __previous__, which holds the key columns
+-- __key__ and the raw x and y columns).
 --
--- Numerics. Pass 1 (one GROUP BY) gives per group the count, the ranges, the means and a first
--- slope b1 = sum(xy) / sum(x^2). Pass 2 joins every pair back to its group and adds up, in
--- compensated (Kahan) sums, x, y, x^2 and, for the residuals e = y - b1 x, x e and e^2. One step
--- of iterative refinement gives the slope, b1 + sum(x e) / sum(x^2), which recovers the digits a
--- cancelling sum(xy) loses; sxy is taken as that slope times sum(x^2). The residual sum of
--- squares comes from the residuals, rss = sum(e^2) - (slope - b1)^2 sum(x^2), exact algebra for
--- any b1, and syy as slope sxy + rss (explained plus residual: no cancellation).
-CREATE OR REPLACE VIEW __view__ AS
-WITH pairs AS NOT MATERIALIZED (
+-- sxx, sxy and syy are taken about the origin instead of the means: sxx = sum(x^2),
+-- sxy = sum(xy), syy = sum(y^2), so that slope = sxy / sxx as with an intercept. x_mean and
+-- y_mean are the plain means, their low parts 0 (the line through the origin uses no means).
+-- rss is the residual sum of squares of the least-squares line through the origin,
+-- syy - sxy^2 / sxx in exact arithmetic (syy itself when sxx = 0), never negative; rss_noise
+-- bounds its rounding error; sxy is exactly 0 when every y is 0. A key whose pairs are all
+-- skipped has n = 0 and NULL sums.
+--
+-- Numerics. Pass 1 (one GROUP BY) gives per key the count, the ranges and a first slope
+-- b1 = sum(xy) / sum(x^2). Pass 2 joins every pair back to its key and adds up, in compensated
+-- (Kahan) sums, x, y, x^2 and, for the residuals e = y - b1 x, x e and e^2. One step of iterative
+-- refinement gives the slope, b1 + sum(x e) / sum(x^2), which recovers the digits a cancelling
+-- sum(xy) loses; sxy is taken as that slope times sum(x^2). The residual sum of squares comes
+-- from the residuals, rss = sum(e^2) - (slope - b1)^2 sum(x^2), exact algebra for any b1, and
+-- syy as slope sxy + rss (explained plus residual: no cancellation). rss_noise is 64 units of
+-- float64 rounding times sqrt(sum(e^2) sum(y^2)).
+WITH tl_pairs AS NOT MATERIALIZED (
     SELECT
-        __group__,
+        __key__,
         CASE WHEN isfinite(CAST(__x__ AS DOUBLE)) AND isfinite(CAST(__y__ AS DOUBLE))
             THEN CAST(__x__ AS DOUBLE) END AS px,
         CASE WHEN isfinite(CAST(__x__ AS DOUBLE)) AND isfinite(CAST(__y__ AS DOUBLE))
             THEN CAST(__y__ AS DOUBLE) END AS py,
         __outside__ AS tl_outside
-    FROM __source__
+    FROM __previous__
 ),
 pass1 AS MATERIALIZED (
     SELECT
-        __group__,
+        __key__,
         row_number() OVER () AS gid,
         CAST(count(px) AS BIGINT) AS n,
         CAST(count(*) AS BIGINT) AS n_rows,
@@ -45,8 +44,8 @@ pass1 AS MATERIALIZED (
             CASE WHEN isfinite(sum(px * py) / sum(px * px)) THEN sum(px * py) / sum(px * px) END,
             0.0
         ) AS b1
-    FROM pairs
-    GROUP BY __group__
+    FROM tl_pairs
+    GROUP BY __key__
 ),
 pass2 AS (
     SELECT
@@ -58,8 +57,8 @@ pass2 AS (
         fsum(e * e) AS sum_ee
     FROM (
         SELECT g.gid, p.px, p.py, p.py - g.b1 * p.px AS e
-        FROM pairs AS p
-        JOIN pass1 AS g ON ROW(p.__group__) IS NOT DISTINCT FROM ROW(g.__group__)
+        FROM tl_pairs AS p
+        JOIN pass1 AS g ON ROW(p.__key__) IS NOT DISTINCT FROM ROW(g.__key__)
         WHERE p.px IS NOT NULL
     ) AS residuals
     GROUP BY gid
@@ -91,7 +90,8 @@ residuals AS (
     FROM refined
 )
 SELECT
-    g.__group__,
+    g.__key__,
+    g.gid,
     g.n,
     g.n_rows,
     g.n_outside,
@@ -106,14 +106,10 @@ SELECT
     g.x_max,
     g.y_min,
     g.y_max,
-    -- 64 units of float64 rounding times sqrt(sum(e^2) sum(y^2)), from the error of each
-    -- residual e = y - b1 x
     pow(2.0, -46) * sqrt(r.sum_ee * (
         CASE WHEN r.sum_xx > 0 AND NOT r.zero_y THEN r.b_ls * r.b_ls * r.sum_xx ELSE 0.0 END
         + r.rss
     )) AS rss_noise,
-    -- low parts of the means, as the centred sums keep them; the fit through the origin uses
-    -- no means, so they are left at 0
     0.0 AS x_mean_lo,
     0.0 AS y_mean_lo
 FROM pass1 AS g
