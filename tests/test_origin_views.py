@@ -192,7 +192,7 @@ def _rows(frame: pd.DataFrame, cell: str) -> pd.DataFrame:
 # --- installation ------------------------------------------------------------------------------
 
 
-def test_origin_twins_are_installed(store: Path) -> None:
+def test_origin_fits_use_the_same_templates(store: Path) -> None:
     with Ledger.open(store, read_only=True) as led:
         spec = led.spec
         listed = led.views().set_index("name")

@@ -38,9 +38,10 @@ RECOMPUTED_FIT = ("fit",)
 #: Kinds whose template creates a table macro (called with arguments) instead of a view.
 TABLE_MACROS = frozenset({"break"})
 
-#: Kinds whose statistics assume a line with an intercept: a fit through the origin gets them
-#: only from an ``_origin`` twin of the template, never from the plain one. A kind missing here
-#: takes the fit's line from the slots ``__line__`` and ``__cross__`` (sql/parts/).
+#: Kinds whose statistics still assume a line with an intercept: not installed for a fit
+#: through the origin. Every other kind takes the fit's line from the slots ``__line__`` and
+#: ``__cross__`` (sql/parts/) and its sums from the fragment ``__sums__``; there are no twin
+#: files for the line through the origin.
 INTERCEPT_ONLY = frozenset({"bend_rounds", "bend", "break", "alerts", "fleet",
                             "fleet_units"})
 
@@ -131,7 +132,7 @@ def plan(spec: Spec, *, recompute: bool = False,
             tpl = _pick(fit, files, offered)
             if tpl is None:
                 continue
-            if fit.through_origin and kind in INTERCEPT_ONLY and not tpl.name.endswith("_origin"):
+            if fit.through_origin and kind in INTERCEPT_ONLY:
                 continue
             installed.add(f"{kind}_view")
             name = fit.view + suffix

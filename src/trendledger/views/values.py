@@ -114,9 +114,10 @@ def fit_values(spec: Spec, fit: Fit) -> dict[str, Any]:
 
 
 def template_for(fit: Fit, file: str) -> str:
-    """``sql/views/<file>.sql``, or its ``<file>_origin.sql`` twin for a through-origin fit."""
-    if fit.through_origin and (templates.sql_dir() / f"views/{file}_origin.sql").is_file():
-        return f"views/{file}_origin.sql"
+    """``sql/views/<file>.sql``: one template serves every fit; what differs between the
+    line with an intercept and the line through the origin is in the slots (sql/parts/) and
+    fragments (sql/fragments/) that ``fit_values`` names."""
+    del fit  # the same file for every fit
     return f"views/{file}.sql"
 
 
