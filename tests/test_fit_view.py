@@ -24,6 +24,7 @@ import statsmodels.api as sm
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import stats
+from sqlglot import exp
 
 from trendledger.views import templates
 from trendledger.views.templates import Fragment, Part
@@ -34,9 +35,9 @@ from .conftest import nist_dir
 COLUMNS = [
     "n", "x_min", "x_max", "slope", "intercept", "r2", "r2_adj", "resid_sd", "slope_se",
     "intercept_se", "slope_t", "slope_p", "slope_lo", "slope_hi", "intercept_lo",
-    "intercept_hi", "status",
+    "intercept_hi", "status", "n_outside",
 ]
-STATISTICS = COLUMNS[3:-1]
+STATISTICS = COLUMNS[3:-2]
 DIGITS = 50  # decimal digits for the exact references' square roots
 # Relative tolerance of p-values and confidence limits, which carry the Student t macros of
 # sql/macros/t_dist.sql (stated there as good to about 13 significant digits).
@@ -70,6 +71,8 @@ def create_view(
     origin = file == "fit_origin"
     values = {"view": view, "source": "measurements", "group": list(group), "x": "x", "y": "y",
               "level": level, "moments_view": f"{view}_moments", "key": list(group),
+              # no form of x or y: no row is outside a form's domain
+              "outside": exp.false(),
               "line": Part("line_origin" if origin else "line_intercept"),
               "line_stats": Fragment("fragments/line_stats.sql"),
               "sums": Fragment(f"fragments/sums_{'origin' if origin else 'intercept'}.sql"),
@@ -182,7 +185,8 @@ def test_columns_and_types(con, file):
     types = {r[0]: r[1] for r in described}
     assert types["n"] == "BIGINT"
     assert types["status"] == "VARCHAR"
-    assert all(types[c] == "DOUBLE" for c in COLUMNS[1:-1])
+    assert types["n_outside"] == "BIGINT"
+    assert all(types[c] == "DOUBLE" for c in COLUMNS[1:-2])
 
 
 def test_description_is_plain_text():
@@ -622,7 +626,7 @@ def test_no_nan_or_infinity_on_a_nasty_table(con, file):
     rows = fetch(con, create_view(con, file))
     assert set(rows) == set(NASTY)
     for cell, row in rows.items():
-        for col in COLUMNS[1:-1]:
+        for col in COLUMNS[1:-2]:
             value = row[col]
             assert value is None or math.isfinite(value), (cell, col, value)
         if cell in NASTY_STATUS[file]:

@@ -222,7 +222,8 @@ def test_origin_fits_use_the_same_templates(store: Path) -> None:
 def test_columns(points: pd.DataFrame) -> None:
     assert list(points.columns) == [
         "cell", "x", "y", "file_id", "y_line", "residual", "residual_scaled", "residual_t",
-        "leverage", "cook_distance", "outlier_p", "outlier"]
+        "leverage", "cook_distance", "outlier_p", "outlier", "x_value", "y_value",
+        "y_line_lo", "y_line_hi", "y_fitted", "y_fitted_lo", "y_fitted_hi"]
     assert len(points) == sum(len(rows) for rows in SERIES.values())
 
 

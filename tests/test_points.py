@@ -120,7 +120,8 @@ def _cell(points: pd.DataFrame, cell: str) -> pd.DataFrame:
 def test_columns(points: pd.DataFrame) -> None:
     assert list(points.columns) == [
         "cell", "x", "y", "file_id", "y_line", "residual", "residual_scaled", "residual_t",
-        "leverage", "cook_distance", "outlier_p", "outlier"]
+        "leverage", "cook_distance", "outlier_p", "outlier", "x_value", "y_value",
+        "y_line_lo", "y_line_hi", "y_fitted", "y_fitted_lo", "y_fitted_hi"]
     assert len(points) == sum(len(rows) for rows in SERIES.values())
 
 

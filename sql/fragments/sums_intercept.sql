@@ -7,6 +7,8 @@
 --   gid               a number per key, for joins inside the view
 --   n                 pairs (x, y) that count: both present and finite (BIGINT)
 --   n_rows            rows of the key, counted pairs or not (BIGINT)
+--   n_outside         rows whose x and y are present and finite but outside the domain of the
+--                     fit's form of x or y (ln of 0, ...): left out like a missing value (BIGINT)
 --   x_min ... y_max   ranges of the counted pairs
 --   x_mean, y_mean    means of the counted pairs
 --   sxx, sxy, syy     centred sums: sum((x - x_mean)^2), sum((x - x_mean)(y - y_mean)),
@@ -40,7 +42,8 @@ WITH tl_pairs AS NOT MATERIALIZED (
         CASE WHEN isfinite(CAST(__x__ AS DOUBLE)) AND isfinite(CAST(__y__ AS DOUBLE))
             THEN CAST(__x__ AS DOUBLE) END AS px,
         CASE WHEN isfinite(CAST(__x__ AS DOUBLE)) AND isfinite(CAST(__y__ AS DOUBLE))
-            THEN CAST(__y__ AS DOUBLE) END AS py
+            THEN CAST(__y__ AS DOUBLE) END AS py,
+        __outside__ AS tl_outside
     FROM __previous__
 ),
 pass1 AS MATERIALIZED (
@@ -49,6 +52,7 @@ pass1 AS MATERIALIZED (
         row_number() OVER () AS gid,
         CAST(count(px) AS BIGINT) AS n,
         CAST(count(*) AS BIGINT) AS n_rows,
+        CAST(count(*) FILTER (WHERE tl_outside) AS BIGINT) AS n_outside,
         min(px) AS x_min,
         max(px) AS x_max,
         min(py) AS y_min,
@@ -129,6 +133,7 @@ SELECT
     g.gid,
     g.n,
     g.n_rows,
+    g.n_outside,
     r.x_mean,
     r.y_mean,
     r.sxx,

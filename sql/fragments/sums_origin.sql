@@ -24,7 +24,8 @@ WITH tl_pairs AS NOT MATERIALIZED (
         CASE WHEN isfinite(CAST(__x__ AS DOUBLE)) AND isfinite(CAST(__y__ AS DOUBLE))
             THEN CAST(__x__ AS DOUBLE) END AS px,
         CASE WHEN isfinite(CAST(__x__ AS DOUBLE)) AND isfinite(CAST(__y__ AS DOUBLE))
-            THEN CAST(__y__ AS DOUBLE) END AS py
+            THEN CAST(__y__ AS DOUBLE) END AS py,
+        __outside__ AS tl_outside
     FROM __previous__
 ),
 pass1 AS MATERIALIZED (
@@ -33,6 +34,7 @@ pass1 AS MATERIALIZED (
         row_number() OVER () AS gid,
         CAST(count(px) AS BIGINT) AS n,
         CAST(count(*) AS BIGINT) AS n_rows,
+        CAST(count(*) FILTER (WHERE tl_outside) AS BIGINT) AS n_outside,
         min(px) AS x_min,
         max(px) AS x_max,
         min(py) AS y_min,
@@ -92,6 +94,7 @@ SELECT
     g.gid,
     g.n,
     g.n_rows,
+    g.n_outside,
     r.sum_x / r.n AS x_mean,
     r.sum_y / r.n AS y_mean,
     r.sum_xx AS sxx,

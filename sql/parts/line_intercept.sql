@@ -3,6 +3,7 @@
 -- slope and the row's leverage h and internally standardised residual r_int:
 --   y_line_x        the line at x: y_mean + slope dx
 --   leverage        1 / n + dx^2 / sxx, for a counted row of a group with two different x
+--   leverage_at     the same for any row with a finite x (the points view's band)
 --   df              n - 2, the residual degrees of freedom of the line
 --   has_df          n >= 3: the line leaves a residual degree of freedom
 --   enough_without  n >= 4: a residual degree of freedom is left with the row left out
@@ -51,6 +52,7 @@ SELECT
     g.n - 2 AS df_of_g,
     CASE WHEN isfinite(x) THEN y_mean + slope * dx END AS y_line_x,
     CASE WHEN counted AND sxx > 0 THEN 1.0 / n + dx * dx / sxx END AS leverage,
+    CASE WHEN isfinite(x) AND sxx > 0 THEN 1.0 / n + dx * dx / sxx END AS leverage_at,
     n - 2 AS df,
     n >= 3 AS has_df,
     n >= 4 AS enough_without,

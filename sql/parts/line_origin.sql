@@ -3,6 +3,7 @@
 -- leverage h and internally standardised residual r_int:
 --   y_line_x        the line at x: slope x (slope is NULL where the fit view gives no line)
 --   leverage        x^2 / sxx, for a counted row of a group with an x other than 0
+--   leverage_at     the same for any row with a finite x (the points view's band)
 --   df              n - 1, the residual degrees of freedom of the line
 --   has_df          n >= 2: the line leaves a residual degree of freedom
 --   enough_without  n >= 3: a residual degree of freedom is left with the row left out
@@ -48,6 +49,7 @@ SELECT
     g.n - 1 AS df_of_g,
     CASE WHEN isfinite(x) THEN slope * x END AS y_line_x,
     CASE WHEN counted AND sxx > 0 AND isfinite(sxx) THEN x * x / sxx END AS leverage,
+    CASE WHEN isfinite(x) AND sxx > 0 AND isfinite(sxx) THEN x * x / sxx END AS leverage_at,
     n - 1 AS df,
     n >= 2 AS has_df,
     n >= 3 AS enough_without,

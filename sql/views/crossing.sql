@@ -9,6 +9,13 @@
 -- or an engine without the bend view). The slot __cross__ writes it as cy + slope (x - cx) with
 -- standard error se(x) = sqrt(cse^2 + slope_se^2 (x - cx)^2): cross_intercept.sql (the segment's
 -- centre) or cross_origin.sql (cx = cy = cse = 0: y = slope x, se(x) = slope_se |x|).
+-- A fit whose x or y is a form (x = "ln(col)" ...) fits the line on that scale: the limit,
+-- given in y's own units, is taken through y's form (only `limit` is: the spec refuses lower,
+-- upper and relative limits on a form of y), and cross_x, cross_lo, cross_hi, cross_bound and
+-- from_x are mapped back to x's own units through the slot __x_back__ (sql/parts/back_*.sql;
+-- for reciprocal(x) the ends swap and the bound comes from the far end of its 90% interval).
+-- limit_value, start_y, latest_x, line_at_latest, extrapolation_end and the note stay on the
+-- fit's scale.
 -- Columns:
 --   group columns   as in the fit view
 --   side            'lower' (a floor) or 'upper' (a ceiling). A fit's `limit` is the side the
@@ -174,6 +181,11 @@ judged AS (
         CASE
             WHEN tl_a_bound > 0 OR tl_d + tl_s * tl_u_bound >= 0 THEN tl_cx + tl_u_bound
         END AS tl_bound,
+        -- the other end of the bound's 90% interval (the bound of a reciprocal x)
+        CASE
+            WHEN tl_u_bound IS NOT NULL AND tl_a_bound > 0
+                THEN tl_cx + (-tl_s * tl_d + t_bound * sqrt(tl_disc_bound)) / tl_a_bound
+        END AS tl_bound_far,
         CASE
             WHEN extrapolation_cap IS NULL OR latest_x - tl_first_x <= extrapolation_cap
                 THEN latest_x + (latest_x - tl_first_x)
@@ -191,10 +203,11 @@ SELECT
     line_at_latest,
     no_line IS NULL AND CASE WHEN side = 'lower' THEN line_at_latest < limit_value
         ELSE line_at_latest > limit_value END AS past,
-    CASE WHEN isfinite(tl_x) THEN tl_x END AS cross_x,
-    CASE WHEN isfinite(tl_lo) AND isfinite(tl_hi) THEN tl_lo END AS cross_lo,
-    CASE WHEN isfinite(tl_lo) AND isfinite(tl_hi) THEN tl_hi END AS cross_hi,
-    CASE WHEN isfinite(tl_bound) THEN tl_bound END AS cross_bound,
+    -- __x_back__ (sql/parts/back_*.sql): from the fit's scale back to x's own units
+    CASE WHEN isfinite(tl_x) THEN __x_back__.cross_x END AS cross_x,
+    CASE WHEN isfinite(tl_lo) AND isfinite(tl_hi) THEN __x_back__.cross_lo END AS cross_lo,
+    CASE WHEN isfinite(tl_lo) AND isfinite(tl_hi) THEN __x_back__.cross_hi END AS cross_hi,
+    CASE WHEN isfinite(tl_bound) THEN __x_back__.cross_bound END AS cross_bound,
     extrapolation_end,
     CASE
         WHEN no_line IS NOT NULL THEN no_line
@@ -225,5 +238,10 @@ SELECT
         ), '')
     END AS note,
     basis,
-    from_x
-FROM judged
+    __x_back__.from_x AS from_x
+FROM (
+    -- the names the back_*.sql parts read
+    SELECT *, tl_x AS x_cross, tl_lo AS x_lo, tl_hi AS x_hi, tl_bound AS x_bound,
+        tl_bound_far AS x_bound_far
+    FROM judged
+) AS tl_onscale

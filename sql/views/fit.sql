@@ -7,6 +7,10 @@
 -- is a group like any other. Group columns must not be named like a column of this view or of
 -- the moments view (the spec refuses such names).
 --
+-- n_outside (last column) counts the rows of the group whose x and y are present and finite
+-- but outside the domain of the fit's form of x or y (x = "ln(col)" ...): left out like a
+-- missing value. With a form, the line, r2, the slope and the intercept are on the form's scale.
+--
 -- status, first matching rule wins:
 --   too_few_points  n < 3. With n = 2 and two different x the line through the two points is
 --                   given (slope, intercept, and r2 = 1 unless y is constant); everything that
@@ -53,6 +57,7 @@ WITH sums AS MATERIALIZED (
         __group__,
         row_number() OVER () AS gid,
         n,
+        n_outside,
         x_min,
         x_max,
         y_min,
@@ -86,6 +91,7 @@ SELECT
     f.slope_hi,
     f.intercept_lo,
     f.intercept_hi,
-    f.status
+    f.status,
+    g.n_outside
 FROM sums AS g
 JOIN stats AS f ON f.gid = g.gid

@@ -25,5 +25,6 @@ SELECT
     slope_hi,
     intercept_lo,
     intercept_hi,
-    status
+    status,
+    n_outside
 FROM __fit_table__

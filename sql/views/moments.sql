@@ -5,6 +5,8 @@
 -- One row per group (a NULL group key is a group like any other), with the group columns and:
 --   n                 pairs (x, y) that count: both present and finite (BIGINT)
 --   n_rows            rows of the group, counted pairs or not (BIGINT)
+--   n_outside         rows whose x and y are present and finite but outside the domain of the
+--                     fit's form of x or y (ln of 0, ...): left out like a missing value (BIGINT)
 --   x_mean, y_mean    means of the counted pairs
 --   sxx, sxy, syy     centred sums: sum((x - x_mean)^2), sum((x - x_mean)(y - y_mean)),
 --                     sum((y - y_mean)^2); sxx is exactly 0 when every x is the same, and sxy,
@@ -29,6 +31,7 @@ SELECT
     __group__,
     n,
     n_rows,
+    n_outside,
     x_mean,
     y_mean,
     sxx,

@@ -7,8 +7,8 @@
 -- rows and rebuilds a moments table (src/trendledger/moments.py).
 --
 -- One row per group (a NULL group key is a group like any other): the group columns, then n,
--- n_rows, x_mean, y_mean, sxx, sxy, syy, rss, the ranges x_min ... y_max, rss_noise and the low
--- parts of the means x_mean_lo, y_mean_lo, as the fragment __sums__ gives them:
+-- n_rows, n_outside, x_mean, y_mean, sxx, sxy, syy, rss, the ranges x_min ... y_max, rss_noise
+-- and the low parts of the means x_mean_lo, y_mean_lo, as the fragment __sums__ gives them:
 -- sql/fragments/sums_intercept.sql (centred sums; its comment says what each column is and how
 -- it keeps its digits), or, for a fit through the origin, sql/fragments/sums_origin.sql (sxx,
 -- sxy and syy about the origin: sum(x^2), sum(xy), sum(y^2); plain means, their low parts 0).
@@ -20,6 +20,7 @@ SELECT
     __group__,
     n,
     n_rows,
+    n_outside,
     x_mean,
     y_mean,
     sxx,

@@ -5,7 +5,8 @@
 -- (x - x_mean), two parameters) or line_origin.sql for a fit through the origin (y = slope x,
 -- one parameter: leverage x^2 / sum(x^2), n - 2 degrees of freedom without the row, Cook's
 -- distance r^2 h / (1 - h), status y_all_zero for constant_y). Below, the line with an intercept.
--- One row per row of the data. Columns:
+-- One row per row of the data that the fit's filter keeps (where = "...": rows it does not
+-- keep are in no view of the fit). Columns:
 --   group columns     as in the fit view
 --   x, y              the row's x and y, as DOUBLE
 --   file_id           the file the row came from (lineage)
@@ -25,7 +26,21 @@
 --   outlier           outlier_p < alpha_outliers (the fit's alpha unless set): the Bonferroni
 --                     test on the externally studentised residuals, over the n rows of the
 --                     group (judged per group; the alerts view judges the groups together)
+--   x_value, y_value  the row's x and y columns as they are stored (DOUBLE); x and y above are
+--                     on the fit's scale, the same values for a fit of plain columns
+--   y_line_lo, y_line_hi
+--                     confidence band of the mean line at x, on the fit's scale, at the fit's
+--                     level: y_line -/+ t s sqrt(h), t = tl_t_crit((1 - level) / 2, df) and
+--                     h = 1 / n + (x - x_mean)^2 / sxx (x^2 / sxx through the origin), also for
+--                     rows that do not count (x finite); NULL without residual degrees of freedom
+--   y_fitted, y_fitted_lo, y_fitted_hi
+--                     y_line and its band mapped back to y's own units through y's form (slot
+--                     __y_back__, sql/parts/back_*.sql; ends swap for reciprocal(y)); the same
+--                     as y_line and its band for a plain y. For ln(y) or log10(y) the line mapped
+--                     back is the median of y at x, not its mean.
 --
+-- A fit whose x or y is a form (x = "ln(col)" ...) reads the form as x or y: a row outside the
+-- form's domain has x or y NULL and counts nowhere, like a missing value.
 -- What is NULL: a row whose x or y is missing or not finite has only the group columns, x, y,
 -- file_id and (x finite) y_line. y_line and residual need a line (fit status ok, constant_y,
 -- perfect_fit, or too_few_points with two different x); leverage needs two different x;
@@ -55,6 +70,12 @@ WITH groups AS MATERIALIZED (
     FROM __moments_view__ AS m
     JOIN __fit_view__ AS f ON ROW(m.__group__) IS NOT DISTINCT FROM ROW(f.__group__)
 ),
+quantiles AS MATERIALIZED (
+    -- the band's t quantile, once per group size (each macro call costs planning time)
+    SELECT n, tl_t_crit((1 - __level__) / 2, __line__.df) AS t_band
+    FROM (SELECT DISTINCT n FROM groups) AS sizes
+    WHERE __line__.has_df
+),
 readings AS (
     SELECT
         r.__group__,
@@ -64,6 +85,9 @@ readings AS (
         coalesce(isfinite(CAST(r.__x__ AS DOUBLE)) AND isfinite(CAST(r.__y__ AS DOUBLE)), false)
             AS counted,
         CAST(r.__x__ AS DOUBLE) - g.x_mean AS dx,
+        CAST(r.__x_column__ AS DOUBLE) AS x_value,
+        CAST(r.__y_column__ AS DOUBLE) AS y_value,
+        q.t_band,
         g.n,
         g.y_mean,
         g.sxx,
@@ -74,13 +98,24 @@ readings AS (
         g.status
     FROM __source__ AS r
     JOIN groups AS g ON ROW(r.__group__) IS NOT DISTINCT FROM ROW(g.__group__)
+    LEFT JOIN quantiles AS q ON q.n = g.n
+    -- the fit's row filter (spec: where = "..."), TRUE for a fit of every row
+    WHERE r.__kept__
 ),
 line AS (
     SELECT
         *,
         __line__.y_line_x AS y_line_x,
-        __line__.leverage AS h
+        __line__.leverage AS h,
+        __line__.leverage_at AS h_at
     FROM readings
+),
+band AS (
+    SELECT
+        *,
+        y_line_x - t_band * s * sqrt(h_at) AS band_lo,
+        y_line_x + t_band * s * sqrt(h_at) AS band_hi
+    FROM line
 ),
 scaled AS (
     SELECT
@@ -90,7 +125,7 @@ scaled AS (
             WHEN counted AND status = 'ok' AND __line__.enough_without AND h < 1
                 THEN rss - (y - y_line_x) * (y - y_line_x) / (1 - h)
         END AS rss_without
-    FROM line
+    FROM band
 ),
 tested AS (
     SELECT
@@ -126,5 +161,12 @@ SELECT
     CASE
         WHEN p_adj IS NOT NULL THEN p_adj < __alpha_outliers__
         WHEN counted AND status IN ('perfect_fit', __line__.no_spread) THEN false
-    END AS outlier
+    END AS outlier,
+    x_value,
+    y_value,
+    CASE WHEN isfinite(band_lo) AND isfinite(band_hi) THEN band_lo END AS y_line_lo,
+    CASE WHEN isfinite(band_lo) AND isfinite(band_hi) THEN band_hi END AS y_line_hi,
+    CASE WHEN isfinite(y_line_x) THEN __y_back__.fitted END AS y_fitted,
+    CASE WHEN isfinite(band_lo) AND isfinite(band_hi) THEN __y_back__.fitted_lo END AS y_fitted_lo,
+    CASE WHEN isfinite(band_lo) AND isfinite(band_hi) THEN __y_back__.fitted_hi END AS y_fitted_hi
 FROM adjusted

@@ -16,7 +16,11 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from trendledger.errors import SpecError
+import sqlglot
+from sqlglot import exp
+
+from trendledger.errors import QueryRefused, SpecError
+from trendledger.query.where import check_where
 from trendledger.views import names
 
 FORMATS = ("csv", "tsv", "parquet", "jsonl")
@@ -47,6 +51,16 @@ RESERVED = {"file_id"}
 #: Cell texts read as missing (NULL) when the spec names none: what instruments and
 #: spreadsheets write for "no value".
 MISSING = ("", "NaN", "nan")
+#: The forms a fit's x or y may take instead of a column's own values (sql/parts/forms.sql):
+#: the line is fitted on that scale and answered back in the column's units.
+FORMS = ("ln", "log10", "sqrt", "reciprocal")
+#: A value the form cannot take, for the limit's check: (test, what the domain is).
+FORM_DOMAINS = {
+    "ln": (lambda v: v > 0, "above 0"),
+    "log10": (lambda v: v > 0, "above 0"),
+    "sqrt": (lambda v: v >= 0, "0 or above"),
+    "reciprocal": (lambda v: v != 0, "other than 0"),
+}
 
 
 @dataclass(frozen=True)
@@ -100,10 +114,21 @@ class Fit:
     error_control: str = "fdr"
     #: raise `silent` for a unit with no rows in this many of its fleet's latest batches
     silent_after: int | None = None
+    #: the form x and y are fitted in (one of FORMS), None for the column's own values
+    x_form: str | None = None
+    y_form: str | None = None
+    #: a row filter (restricted like ``fits --where``): rows it does not hold stay in the store
+    #: and out of this fit; None fits every row
+    where: str | None = None
 
     @property
     def view(self) -> str:
         return f"fit_{self.name}"
+
+    def shown(self, axis: str) -> str:
+        """How the fit names its x or y: the column, or the form of it, e.g. ``ln(assay)``."""
+        col, form = (self.x, self.x_form) if axis == "x" else (self.y, self.y_form)
+        return f"{form}({col})" if form else col
 
 
 @dataclass(frozen=True)
@@ -136,6 +161,9 @@ class Source:
     #: the step each column's values are recorded to (0.01 for two decimals): a fit's residual
     #: standard deviation is never taken below resolution / sqrt(12), the rounding noise
     resolution: dict[str, float] = field(default_factory=dict)
+    #: named columns computed from declared ones when a fit reads them, never stored:
+    #: {"efficiency": "discharge_ah / charge_ah"} (views/forms.py turns them into SQL)
+    computed: dict[str, str] = field(default_factory=dict)
 
     def derived(self) -> dict[str, str]:
         """Columns the store adds for censored columns: which side, and the limit."""
@@ -268,7 +296,8 @@ def _number(raw: dict[str, Any], key: str, where: str, path: str | None) -> floa
 def _parse_source(doc: dict[str, Any], path: str | None) -> Source:
     raw = _table(doc, "source", path)
     _unknown_keys(raw, {"files", "format", "columns", "fields", "delimiter", "missing",
-                        "decimal", "key", "timezone", "allow", "resolution"}, "[source]", path)
+                        "decimal", "key", "timezone", "allow", "resolution",
+                        "computed"}, "[source]", path)
     files = raw.get("files")
     if not isinstance(files, str) or not files.strip():
         raise SpecError("[source] files: give a path template such as \"in/{day}/{unit}.csv\"",
@@ -375,11 +404,67 @@ def _parse_source(doc: dict[str, Any], path: str | None) -> Source:
                             "two cases)", file=path)
         lowered[name.lower()] = name
     key = _key(raw.get("key"), {**columns, **fields}, path)
+    computed = _computed(_table(raw, "computed", path, required=False),
+                         {**columns, **fields}, lowered, path)
     return Source(files=files, format=fmt, columns=columns, fields=fields, delimiter=delimiter,
+                  computed=computed,
                   headers=headers, missing=missing, decimal=decimal, key=key,
                   timezone=_zone(raw.get("timezone", "UTC"), path), censored=censored,
                   column_missing=column_missing, allow=_parse_allow(raw.get("allow", []), path),
                   resolution=_resolution(raw.get("resolution", {}), columns, path))
+
+
+#: What a computed column's expression may hold besides columns, numbers, + - * / and
+#: parentheses: these functions of one value (views/forms.py guards their domains).
+COMPUTED_FUNCTIONS = {"abs": exp.Abs, "ln": exp.Ln, "log10": exp.Log, "sqrt": exp.Sqrt,
+                      "exp": exp.Exp}
+_COMPUTED_NODES = (exp.Column, exp.Identifier, exp.Literal, exp.Paren, exp.Add, exp.Sub,
+                   exp.Mul, exp.Div, exp.Neg, *COMPUTED_FUNCTIONS.values())
+
+
+def computed_tree(text: str) -> exp.Expr:
+    """A computed column's expression parsed (checked by the spec parser)."""
+    return sqlglot.parse_one(text, read="duckdb")
+
+
+def _computed(raw: dict[str, Any], known: dict[str, str], lowered: dict[str, str],
+              path: str | None) -> dict[str, str]:
+    """``[source.computed]``: name = "expression over declared columns and fields"."""
+    out: dict[str, str] = {}
+    allowed = ", ".join(COMPUTED_FUNCTIONS)
+    for name, text in raw.items():
+        where = f"[source.computed] {name}"
+        _check_name(name, "[source.computed]", path)
+        if name.lower() in lowered:
+            raise SpecError(f"{where}: a column or field is already called {name!r}", file=path)
+        refused = SpecError(
+            f"{where}: {text!r} is not an expression of declared numeric columns; only "
+            f"columns, numbers, + - * /, parentheses and the functions {allowed} of one value "
+            "are allowed", file=path)
+        if not isinstance(text, str) or not text.strip():
+            raise refused
+        try:
+            tree = computed_tree(text)
+        except sqlglot.errors.SqlglotError:
+            raise refused from None
+        for node in tree.walk():
+            if not isinstance(node, _COMPUTED_NODES) or (
+                    isinstance(node, exp.Log) and not (
+                        isinstance(node.this, exp.Literal) and node.this.this == "10"
+                        and node.expression is not None)) or (
+                    isinstance(node, exp.Literal) and node.is_string):
+                raise refused
+            if isinstance(node, exp.Column):
+                if node.table or node.name not in known:
+                    raise SpecError(f"{where}: {node.sql()!r} is not a declared column or field",
+                                    file=path, hint=did_you_mean(node.name, list(known)))
+                typ = known[node.name]
+                if typ not in NUMERIC and not DECIMAL.match(typ):
+                    raise SpecError(f"{where}: {node.name!r} has type {typ}; a computed column "
+                                    "reads numeric columns", file=path)
+        out[name] = text
+        lowered[name.lower()] = name
+    return out
 
 
 def _zone(value: Any, path: str | None) -> str:
@@ -470,7 +555,7 @@ def _guess_format(files: str) -> str:
 FIT_KEYS = {
     "name", "group", "x", "y", "level", "through_origin", "limit", "horizon", "window",
     "window_x", "min_r2", "alpha", "fleet", "pool_alpha",
-    "bend", "bend_min", "lower", "upper", "extrapolation_cap",
+    "bend", "bend_min", "where", "lower", "upper", "extrapolation_cap",
     "alpha_change", "alpha_outliers", "alpha_trend", "error_control", "silent_after",
 }
 ERROR_CONTROLS = ("fdr", "unit")
@@ -486,18 +571,25 @@ def _parse_fit(raw: Any, index: int, source: Source, path: str | None) -> Fit:
         raise SpecError(f"{where}: give it a name", file=path)
     where = f"[[fit]] {name}"
     _check_name(name, where, path)
-    known = {**source.columns, **source.fields}
+    declared = {**source.columns, **source.fields}
+    # x, y and the filter may read computed columns (DOUBLE); group and fleet may not
+    known = {**declared, **{c: "DOUBLE" for c in source.computed}}
 
     def column(key: str, value: Any) -> str:
         if not isinstance(value, str):
             raise SpecError(f"{where}: {key} must be a column name", file=path)
+        if key == "group" and value in source.computed:
+            raise SpecError(f"{where}: group = {value!r} is a computed column; group by "
+                            "declared columns or fields", file=path)
         if value not in known:
             raise SpecError(f"{where}: {key} = {value!r} is not a declared column or field",
                             file=path, hint=did_you_mean(value, list(known)))
         return value
 
-    x = column("x", raw.get("x"))
-    y = column("y", raw.get("y"))
+    x_form, x_text = _form(raw.get("x"), "x", where, path)
+    y_form, y_text = _form(raw.get("y"), "y", where, path)
+    x = column("x", x_text)
+    y = column("y", y_text)
     for key, col in (("x", x), ("y", y)):
         if known[col] not in NUMERIC and not DECIMAL.match(known[col]):
             raise SpecError(f"{where}: {key} = {col!r} has type {known[col]}; it must be numeric",
@@ -559,11 +651,27 @@ def _parse_fit(raw: Any, index: int, source: Source, path: str | None) -> Fit:
         raise SpecError(f"{where}: bend_min is the least share of a group's points on each "
                         "side of a bend, above 0 and below 0.5, e.g. 0.15", file=path)
     lower, upper, cap = _tolerance(raw, where, path)
+    limit = _number(raw, "limit", where, path)
+    if limit is not None and y_form is not None:
+        inside, domain = FORM_DOMAINS[y_form]
+        if not inside(limit):
+            raise SpecError(f"{where}: limit = {limit:g} is given in {y}'s own units and "
+                            f"{y_form}({y}) needs a value {domain}", file=path)
+    if y_form is not None and (lower is not None or upper is not None):
+        # a form turns a floor into a ceiling (reciprocal) and a fraction of the start into
+        # something else on the fit's scale: only the plain limit is carried through a form
+        raise SpecError(f"{where}: a fit of {y_form}({y}) takes `limit` (in {y}'s own units, the "
+                        "side its slope points to); lower, upper and relative limits need a "
+                        "plain y", file=path)
+    row_filter = raw.get("where")
+    if row_filter is not None:
+        filter_condition(row_filter, known, where, path)
     return Fit(
         name=name, group=group, x=x, y=y,
+        x_form=x_form, y_form=y_form, where=row_filter,
         level=level if level is not None else 0.95,
         through_origin=origin,
-        limit=_number(raw, "limit", where, path),
+        limit=limit,
         horizon=horizon,
         window=window,
         window_x=window_x,
@@ -631,6 +739,47 @@ def _tolerance(raw: dict[str, Any], where: str,
         raise SpecError(f"{where}: extrapolation_cap must be positive (x units beyond the "
                         "latest x, e.g. 12 for months)", file=path)
     return lower, upper, cap
+def filter_condition(text: Any, known: dict[str, str], where: str = "[[fit]]",
+                     path: str | None = None) -> exp.Expr:
+    """A fit's ``where``: a condition over declared columns and fields, checked like
+    ``fits --where`` (columns, literals, comparisons, arithmetic, no function call)."""
+    if not isinstance(text, str):
+        raise SpecError(f"{where}: where must be a condition in a string, e.g. "
+                        "where = \"cycle_kind = 'standard'\"", file=path)
+    try:
+        return check_where(text, list(known))
+    except QueryRefused as err:
+        reason = err.message.removeprefix("refused: ").replace("the --where condition",
+                                                               "the condition")
+        reason = reason.replace("--where", "where")
+        raise SpecError(f"{where}: where = {text!r}: {reason}", file=path,
+                        hint=err.hint) from None
+
+
+def _form(value: Any, key: str, where: str, path: str | None) -> tuple[str | None, Any]:
+    """Split ``x`` or ``y`` into (form, column): ``"ln(assay)"`` gives ("ln", "assay"), a
+    plain column name gives (None, name). Anything else is refused in one sentence."""
+    if not isinstance(value, str) or "(" not in value:
+        return None, value
+    allowed = ", ".join(f"{f}(column)" for f in FORMS)
+    refused = SpecError(f"{where}: {key} = {value!r} is neither a column nor one of the "
+                        f"allowed forms {allowed} of one declared column", file=path)
+    try:
+        node = sqlglot.parse_one(value, read="duckdb")
+    except sqlglot.errors.SqlglotError:
+        raise refused from None
+    name = re.match(r"\s*([A-Za-z0-9_]+)\s*\(", value)
+    form = name.group(1).lower() if name else None
+    kinds = {"ln": exp.Ln, "log10": exp.Log, "sqrt": exp.Sqrt, "reciprocal": exp.Anonymous}
+    if form not in kinds or not isinstance(node, kinds[form]):
+        raise refused
+    args = [a for a in node.iter_expressions()
+            if not (form == "log10" and isinstance(a, exp.Literal) and a.this == "10")]
+    if (len(args) != 1 or not isinstance(args[0], exp.Column) or args[0].table
+            or (isinstance(node, exp.Log) and node.this is not None and not (
+                isinstance(node.this, exp.Literal) and node.this.this == "10"))):
+        raise refused
+    return form, args[0].name
 
 
 def _fleet(raw: Any, group: tuple[str, ...], known: dict[str, str], where: str,

@@ -73,7 +73,8 @@ DIALECTS: tuple[str, ...] = ("duckdb", "spark", "postgres", "trino")
 _KNOWN: dict[str, frozenset[str]] = {
     "duckdb": frozenset(),
     "spark": frozenset({"row"}),
-    "postgres": frozenset({"row"}),
+    # log: the one-argument base-10 LOG the log10 rewrite writes (see _Rewriter)
+    "postgres": frozenset({"row", "log"}),
     "trino": frozenset({"row", "is_finite", "is_infinite", "is_nan"}),
 }
 #: Aggregates each target has natively (the rest are rewritten).
@@ -176,6 +177,13 @@ class _Rewriter:
             return self.any_value(node.this)
         if target == "postgres" and isinstance(node, exp.Sqrt | exp.Ln | exp.Exp):
             return self.guard_math(node)
+        if target == "postgres" and isinstance(node, exp.Log) and node.expression is not None \
+                and isinstance(node.this, exp.Literal) and node.this.this == "10":
+            # log10 (sql/parts/forms.sql): PostgreSQL's LOG(b, x) takes numeric only, and
+            # its one-argument LOG(x) is base 10 for double precision; it raises below 0
+            return self.bind(node.expression, lambda v: exp.Case(ifs=[
+                exp.If(this=exp.GT(this=v.copy(), expression=exp.Literal.number(0)),
+                       true=exp.Anonymous(this="LOG", expressions=[v.copy()]))]))
         if target == "spark" and isinstance(node, exp.Ln):
             return self.guard_math(node)
         if isinstance(node, exp.Window):

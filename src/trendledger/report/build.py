@@ -37,6 +37,7 @@ from trendledger.outputs import check_not_store, write_owned
 from trendledger.query.output import TINY_P, is_p_value
 from trendledger.spec import Fit, Spec, did_you_mean
 from trendledger.version import __version__
+from trendledger.views import forms
 from trendledger.views.read import view_columns
 
 if TYPE_CHECKING:
@@ -683,7 +684,8 @@ def build(
             plotted[x_col].astype(float), plotted[y_col].astype(float), list(plotted[LABEL]),
             alerting=alerting, chosen=asked, unlike=unlike, x_title=x_col, y_title=y_col,
             x_line=ref,
-            title=f"{fit.name}: {fit.y} against {fit.x}, per {', '.join(fit.group)}")
+            title=f"{fit.name}: {fit.shown('y')} against {fit.shown('x')}, "
+                  f"per {', '.join(fit.group)}")
         unplaced = drawn.unplaced
         over.images.append(("overview.png", keep("overview.png", drawn),
                             f"{y_col} against {x_col} for {len(plotted)} groups, "
@@ -717,9 +719,11 @@ def build(
                              _subtitle(reasons, g), bends) for g in detail]
         for i, chunk in enumerate(_chunks(items, PANELS_PER_IMAGE)):
             file = "groups.png" if len(items) <= PANELS_PER_IMAGE else f"groups-{i + 1}.png"
-            drawn = plots.panels(chunk, x_title=fit.x, y_title=fit.y, level=fit.level)
+            # drawn on the fit's scale (ln(y) ...), axes named so, the limit taken there too
+            drawn = plots.panels(chunk, x_title=fit.shown("x"), y_title=fit.shown("y"),
+                                 level=fit.level)
             panels_sec.images.append((file, keep(file, drawn),
-                                      f"{fit.y} against {fit.x} for "
+                                      f"{fit.shown('y')} against {fit.shown('x')} for "
                                       + ", ".join(p.name for p in chunk) + "."))
         if _has_limit(fit):
             panels_sec.lead.append(f'<div class="caution"><strong>Caution</strong>'
@@ -733,7 +737,8 @@ def build(
                 # beside the projection from the line that holds now, the whole history's
                 by_label = fits.set_index(LABEL)
                 crossing["whole_cross_x"] = [
-                    _whole_cross(fit, by_label.loc[g]) if g in by_label.index else None
+                    _x_units(fit, _whole_cross(fit, by_label.loc[g]))
+                    if g in by_label.index else None
                     for g in crossing[LABEL]]
                 cols = [*fit.group, *(c for c in ("side", "limit_value", "cross_x", "cross_lo",
                                                    "cross_hi", "cross_bound", "extrapolation_end",
@@ -742,7 +747,10 @@ def build(
                 what = (f"the limit {fit.limit:g}" if fit.limit is not None
                         else "the limits, per side")
                 panels_sec.parts.append(
-                    f"<h3>Projected crossing of {what}</h3>"
+                    f"<h3>Projected crossing of {what}"
+                    + (f" ({_esc(fit.y)}'s own units; the panels draw it as "
+                       f"{_esc(fit.shown('y'))}, the crossings below are in {_esc(fit.x)}'s "
+                       "own units)" if fit.x_form or fit.y_form else "") + "</h3>"
                     '<div class="scroll">' + table(crossing, cols, table_id="crossing")
                     + "</div>")
     sections.append(panels_sec)
@@ -777,7 +785,7 @@ def build(
         unit = "date" if not pd.api.types.is_numeric_dtype(windows["window_start"]) else fit.x
         for i, chunk in enumerate(_chunks(entries, PANELS_PER_IMAGE)):
             file = "history.png" if len(entries) <= PANELS_PER_IMAGE else f"history-{i + 1}.png"
-            drawn = plots.history(chunk, x_title=unit, y_title=f"slope of {fit.y}")
+            drawn = plots.history(chunk, x_title=unit, y_title=f"slope of {fit.shown('y')}")
             hist.images.append((file, keep(file, drawn), "Window slopes for "
                                 + ", ".join(h.name for h in chunk) + "."))
     sections.append(hist)
@@ -848,7 +856,7 @@ def _fleet_section(con: duckdb.DuckDBPyConnection, views: Views,
         items.append(plots.Fleet(str(row[LABEL]), frame, _num(row["slope_mean"]),
                                  _num(row["slope_tau"])))
     if items:
-        drawn = plots.fleet(items, y_title=f"slope of {fit.y}")
+        drawn = plots.fleet(items, y_title=f"slope of {fit.shown('y')}")
         sec.images.append(("fleets.png", keep("fleets.png", drawn),
                            "Unit slopes against their fleet for "
                            + ", ".join(f.name for f in items) + "."))
@@ -868,11 +876,26 @@ def _fleet_section(con: duckdb.DuckDBPyConnection, views: Views,
 
 
 def _whole_cross(fit: Fit, row: pd.Series) -> float | None:
-    """Where the whole-history line reaches the limit (a point estimate, for comparison)."""
+    """Where the whole-history line reaches the limit (a point estimate, for comparison), on
+    the fit's scale (the limit taken through y's form)."""
     slope, intercept = _num(row.get("slope")), _num(row.get("intercept"))
-    if fit.limit is None or not slope or intercept is None:
+    limit = forms.forward(fit.y_form, fit.limit)
+    if limit is None or not slope or intercept is None:
         return None
-    return (fit.limit - intercept) / slope
+    return (limit - intercept) / slope
+
+
+def _x_units(fit: Fit, u: float | None) -> float | None:
+    """A value on the fit's x scale back in x's own units (the inverse of x's form)."""
+    if u is None or fit.x_form is None:
+        return u
+    if fit.x_form == "ln":
+        return math.exp(u) if u < 709 else None
+    if fit.x_form == "log10":
+        return 10.0 ** u if u < 308 else None
+    if fit.x_form == "sqrt":
+        return u * u if u >= 0 else None
+    return 1.0 / u if u != 0 else None
 
 
 def _bend_data(fit: Fit, bends: pd.DataFrame | None, name: str) -> Any:
@@ -915,15 +938,19 @@ def _panel_data(fit: Fit, fits: pd.DataFrame, points: pd.DataFrame,
     # The fit's own t quantile, recovered from its interval: slope_hi = slope + t * slope_se.
     t = (hi - slope) / se if slope is not None and se and hi is not None else None
     cross = None
-    limit = fit.limit
+    limit = forms.forward(fit.y_form, fit.limit)  # drawn on the fit's scale
     if crossing is not None:
         c = crossing[crossing[LABEL] == name]
         if len(c):
             # the side that matters is drawn: its limit (a relative limit is the unit's own)
             r = _side_that_matters(c)
             limit = _num(r.get("limit_value")) if "limit_value" in r else limit
-            cross = Crossing(_num(r.get("cross_x")), _num(r.get("cross_lo")),
-                             _num(r.get("cross_hi")), _num(r.get("cross_bound")),
+            # the crossing view answers in x's own units; the panel is on the fit's scale
+            ends = [forms.forward(fit.x_form, _num(r.get(k)))
+                    for k in ("cross_x", "cross_lo", "cross_hi", "cross_bound")]
+            if fit.x_form == "reciprocal":
+                ends[1], ends[2] = ends[2], ends[1]
+            cross = Crossing(ends[0], ends[1], ends[2], ends[3],
                              None if _is_missing(r.get("note")) else str(r["note"]))
     return Panel(
         name=name, x=x, y=y, outlier=mine["_outlier"].to_numpy(bool), slope=slope,

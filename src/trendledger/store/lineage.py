@@ -311,7 +311,8 @@ def check(con: duckdb.DuckDBPyConnection, root: Path,
     spec = stored_spec(con)
     if not spec.source.key:
         for fit in spec.fits:
-            report.repeated_x.extend(history.repeated_x(con, fit))
+            if fit.x in spec.all_columns:  # a computed x is no stored column to look up
+                report.repeated_x.extend(history.repeated_x(con, fit))
     return report
 
 

@@ -9,6 +9,7 @@ template with sqlglot and replace those identifier nodes in the syntax tree:
   (SELECT list, GROUP BY, PARTITION BY, USING, ...),
 * a number becomes a numeric literal,
 * a :class:`Text` becomes a string literal (for example a date_trunc unit),
+* an sqlglot expression stands in for a column (the form of x or y, views/forms.py),
 * a placeholder ``__name_if_any__`` with no value leaves out the UNION branch it stands in,
 * a :class:`Part` names a file under ``sql/parts/`` holding named expressions: a column
   ``__slot__.name`` becomes that file's expression ``name``, itself filled with the same values
@@ -55,7 +56,8 @@ class Fragment:
     relative: str
 
 
-Value = str | float | int | Sequence[str] | Sequence[exp.Expression] | Fragment | None
+Value = (str | float | int | Sequence[str] | Sequence[exp.Expression] | exp.Expression
+         | Fragment | None)
 
 
 def sql_dir() -> Path:
@@ -255,6 +257,15 @@ def _fill(tree: exp.Expression, values: Mapping[str, Value]) -> exp.Expression:
             raise TemplateError(f"placeholder __{key}__ cannot take a boolean")
         elif isinstance(value, int | float):
             holder.replace(exp.Literal.number(repr(value)))
+        elif isinstance(value, exp.Expression):
+            # an expression in place of a column (views/forms.py: the form of x or y); a
+            # table qualifier on the placeholder (r.__x__) qualifies its columns
+            item = value.copy()
+            table = holder.args.get("table") if isinstance(holder, exp.Column) else None
+            for col in item.find_all(exp.Column):
+                if table is not None and not col.args.get("table"):
+                    col.set("table", table.copy())
+            holder.replace(item if isinstance(item, _ATOMS) else exp.Paren(this=item))
         else:
             _expand(holder, ident, key, list(value))  # type: ignore[arg-type]
     return tree

@@ -12,7 +12,7 @@ from typing import Any
 from sqlglot import exp
 
 from trendledger.spec import Fit, Spec
-from trendledger.views import templates
+from trendledger.views import forms, templates
 from trendledger.views.templates import Part, Text
 
 #: View kinds per fit, in install order (later ones may read earlier ones).
@@ -48,6 +48,7 @@ def fit_values(spec: Spec, fit: Fit) -> dict[str, Any]:
     ``__moments_view__`` ...), so a template can read its siblings.
     """
     dates = [n for n, t in spec.all_columns.items() if t.startswith(("DATE", "TIMESTAMP"))]
+    keep = forms.kept(spec, fit)
     values: dict[str, Any] = {
         "source": "measurements",
         "group": list(fit.group),
@@ -62,10 +63,22 @@ def fit_values(spec: Spec, fit: Fit) -> dict[str, Any]:
         "side_group": [*fit.group, "tl_above"],
         "sums": templates.Fragment("fragments/sums_origin.sql" if fit.through_origin
                                    else "fragments/sums_intercept.sql"),
-        "x": fit.x,
-        "y": fit.y,
+        # the column, or its form (views/forms.py): what every view fits
+        "x": forms.value(spec, fit.x, fit.x_form, keep),
+        "y": forms.value(spec, fit.y, fit.y_form, keep),
+        # the rows the fit's filter keeps (the points view leaves the others out)
+        "kept": keep if keep is not None else exp.true(),
+        # the columns' own values (the points view shows both)
+        "x_column": forms.value(spec, fit.x, None),
+        "y_column": forms.value(spec, fit.y, None),
+        # true for a row a form leaves out (counted per group: n_outside)
+        "outside": forms.outside(spec, fit, keep),
+        # sql/parts/back_*.sql: the fit's scale back to the columns' own units
+        "x_back": Part(f"back_{fit.x_form or 'plain'}"),
+        "y_back": Part(f"back_{fit.y_form or 'plain'}"),
         "level": fit.level,
-        "limit": fit.limit,
+        # the limit is given in y's own units; the views compare it on the fit's scale
+        "limit": forms.limit(fit),
         "horizon": fit.horizon,
         "window": Text(fit.window) if fit.window else None,
         "window_field": dates[0] if dates else None,
