@@ -456,6 +456,25 @@ def _panel(limit: float | None = None, crossing: Any = None, outliers: int = 0,
                        limit=limit, crossing=crossing)
 
 
+def test_panel_draws_both_limits_and_marks_readings_beyond_them_and_out_of_trend() -> None:
+    from dataclasses import replace
+
+    base = _panel(limit=2.2, crossing=plots.Crossing(x=80.0, lo=75.0, hi=86.0, bound=76.0))
+    beyond = base.y > 2.98  # the first readings, above a ceiling of 2.98
+    off = np.zeros(base.x.size, dtype=bool)
+    off[-2:] = True
+    drawn = plots.panels([replace(base, other_limit=2.98, beyond=beyond, off_trend=off)],
+                         x_title="cycle", y_title="capacity", level=0.95)
+    ax = drawn.figure.axes[0]
+    assert by_gid(ax, "limit-other")[0].get_ydata()[0] == 2.98
+    ringed = by_gid(ax, "beyond-limit")[0].get_offsets()
+    assert len(ringed) == int(beyond.sum()) > 0
+    assert np.allclose(np.asarray(ringed)[:, 0], base.x[beyond])
+    assert np.allclose(np.asarray(by_gid(ax, "off-trend")[0].get_offsets())[:, 0], base.x[-2:])
+    labels = {t.get_text() for t in drawn.figure.legends[0].get_texts()}
+    assert {"reading beyond a limit", "reading out of trend"} <= labels
+
+
 def test_group_panel_draws_points_line_band_limit_and_crossing() -> None:
     crossing = plots.Crossing(x=80.0, lo=75.0, hi=86.0, bound=76.0)
     drawn = plots.panels([_panel(limit=2.2, crossing=crossing, outliers=3), _panel(name="u2")],

@@ -715,8 +715,10 @@ def build(
                    if views.has("moments") else None)
         bends = (_read(con, views.name("bend"), fit.group, detail)
                  if views.has("bend") else None)
+        trend = (_read(con, views.name("trend"), fit.group, detail)
+                 if views.has("trend") else None)
         items = [_panel_data(fit, fits, points, moments, crossing, g,
-                             _subtitle(reasons, g), bends) for g in detail]
+                             _subtitle(reasons, g), bends, trend) for g in detail]
         for i, chunk in enumerate(_chunks(items, PANELS_PER_IMAGE)):
             file = "groups.png" if len(items) <= PANELS_PER_IMAGE else f"groups-{i + 1}.png"
             # drawn on the fit's scale (ln(y) ...), axes named so, the limit taken there too
@@ -919,7 +921,8 @@ def _bend_data(fit: Fit, bends: pd.DataFrame | None, name: str) -> Any:
 
 def _panel_data(fit: Fit, fits: pd.DataFrame, points: pd.DataFrame,
                 moments: pd.DataFrame | None, crossing: pd.DataFrame | None, name: str,
-                subtitle: str, bends: pd.DataFrame | None = None) -> Any:
+                subtitle: str, bends: pd.DataFrame | None = None,
+                trend: pd.DataFrame | None = None) -> Any:
     from trendledger.report.plots import Crossing, Panel
 
     row = fits[fits[LABEL] == name].iloc[0]
@@ -939,12 +942,22 @@ def _panel_data(fit: Fit, fits: pd.DataFrame, points: pd.DataFrame,
     t = (hi - slope) / se if slope is not None and se and hi is not None else None
     cross = None
     limit = forms.forward(fit.y_form, fit.limit)  # drawn on the fit's scale
+    other: float | None = None
+    beyond = np.zeros(len(x), dtype=bool)
     if crossing is not None:
         c = crossing[crossing[LABEL] == name]
         if len(c):
-            # the side that matters is drawn: its limit (a relative limit is the unit's own)
+            # the side that matters is drawn with its projection (a relative limit is the
+            # unit's own), the other side's limit beside it
             r = _side_that_matters(c)
             limit = _num(r.get("limit_value")) if "limit_value" in r else limit
+            for _, side in c.iterrows():
+                value = _num(side.get("limit_value"))
+                if value is None or "side" not in side:
+                    continue
+                beyond |= (y < value) if side["side"] == "lower" else (y > value)
+                if side["side"] != r.get("side"):
+                    other = value
             # the crossing view answers in x's own units; the panel is on the fit's scale
             ends = [forms.forward(fit.x_form, _num(r.get(k)))
                     for k in ("cross_x", "cross_lo", "cross_hi", "cross_bound")]
@@ -958,7 +971,21 @@ def _panel_data(fit: Fit, fits: pd.DataFrame, points: pd.DataFrame,
         n=int(row["n"]) if not _is_missing(row.get("n")) else len(x), x_mean=x_mean, sxx=sxx,
         t=t, through_origin=fit.through_origin, limit=limit, crossing=cross,
         subtitle=subtitle, bend=_bend_data(fit, bends, name),
-        whole_cross=_whole_cross(fit, row))
+        whole_cross=_whole_cross(fit, row), other_limit=other, beyond=beyond,
+        off_trend=_off_trend(trend, name, x, y))
+
+
+def _off_trend(trend: pd.DataFrame | None, name: str, x: np.ndarray,
+               y: np.ndarray) -> np.ndarray:
+    """Which of a group's readings the trend view finds outside the prediction interval of
+    the earlier line (its rows are the latest batch's; matched by x and y)."""
+    out = np.zeros(len(x), dtype=bool)
+    if trend is None or "outside" not in trend:
+        return out
+    t = trend[(trend[LABEL] == name) & trend["outside"].fillna(False).astype(bool)]
+    for tx, ty in zip(t["x"].to_numpy(float), t["y"].to_numpy(float), strict=True):
+        out |= (x == tx) & (y == ty)
+    return out
 
 
 def _alert_section(fit: Fit, alerts: pd.DataFrame, note: str | None) -> Section:

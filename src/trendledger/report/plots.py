@@ -373,6 +373,12 @@ class Panel:
     bend: Bend | None = None
     #: where the whole-history line reaches the limit, quoted beside the current projection
     whole_cross: float | None = None
+    #: the other side's limit (a two-sided tolerance), drawn without a projection
+    other_limit: float | None = None
+    #: readings beyond a limit, and readings of the latest batch outside the prediction
+    #: interval of the earlier line (out of trend): masks aligned with x
+    beyond: np.ndarray | None = None
+    off_trend: np.ndarray | None = None
 
 
 def mean_band(p: Panel, grid: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
@@ -523,6 +529,16 @@ def _panel(ax: Axes, p: Panel, x_title: str, y_title: str, level: float) -> dict
         drawn["lines"].append("limit")
         if not y_lo - pad <= p.limit <= y_hi + pad:
             notes.append(f"limit {_fmt(p.limit)} is {'below' if p.limit < y_lo else 'above'}")
+    if p.other_limit is not None and y_lo - pad <= p.other_limit <= y_hi + pad:
+        ax.axhline(p.other_limit, color=RUST, linestyle=(0, (6, 2, 1.5, 2)), linewidth=0.8,
+                   alpha=0.6, zorder=3, gid="limit-other")
+        drawn["lines"].append("limit-other")
+    for mask, marker, gid in ((p.beyond, "o", "beyond-limit"), (p.off_trend, "s", "off-trend")):
+        if mask is not None and mask.any():
+            ax.scatter(p.x[mask], np.clip(p.y[mask], y_lo - pad, y_hi + pad), s=70,
+                       marker=marker, facecolor="none", edgecolor=RUST, linewidth=1.2,
+                       zorder=6, gid=gid)
+            drawn[gid] = int(mask.sum())
     c = p.crossing
     if c is not None and c.x is not None:
         if crossing_shown:
@@ -600,6 +616,11 @@ def panels(
     if any("crossing-bound" in d["lines"] for d in info["panels"].values()):
         handles.append(Line2D([], [], linestyle="none", marker="|", markersize=10,
                               markeredgewidth=2.0, color=INK, label="conservative crossing bound"))
+    for gid, marker, label in (("beyond-limit", "o", "reading beyond a limit"),
+                               ("off-trend", "s", "reading out of trend")):
+        if any(d.get(gid) for d in info["panels"].values()):
+            handles.append(Line2D([], [], linestyle="none", marker=marker, markersize=8,
+                                  markerfacecolor="none", markeredgecolor=RUST, label=label))
     fig.legend(handles=handles, loc="upper center", ncol=min(len(handles), 4), frameon=False,
                fontsize=FONT, bbox_to_anchor=(0.5, 1.0))
     # Room for the legend's rows above the panels (inches), the rest for the panels.
