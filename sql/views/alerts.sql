@@ -88,16 +88,18 @@ WITH groups AS MATERIALIZED (
 ),
 in_time AS MATERIALIZED (
     -- the readings in the order they were taken: by the date field (when the spec has one),
-    -- then by file (arrival), then by their order in the file; with the x before each
+    -- then by file (arrival), then by x within a file (a file's own row order is not kept by
+    -- every engine, nor by an export: a counter reset inside one file is not seen); with the
+    -- x before each
     SELECT
         s.__group__,
         CAST(s.__x__ AS DOUBLE) AS tl_x,
         s.__window_field_or_null__ AS tl_date,
         f.batch_id AS tl_batch,
         lag(CAST(s.__x__ AS DOUBLE)) OVER (PARTITION BY s.__group__
-            ORDER BY s.__window_field_or_null__, s.file_id, s.rowid) AS tl_x_before,
+            ORDER BY s.__window_field_or_null__, s.file_id, s.__x__) AS tl_x_before,
         row_number() OVER (PARTITION BY s.__group__
-            ORDER BY s.__window_field_or_null__ DESC, s.file_id DESC, s.rowid DESC) AS tl_last
+            ORDER BY s.__window_field_or_null__ DESC, s.file_id DESC, s.__x__ DESC) AS tl_last
     FROM __source__ AS s
     JOIN ingest_files AS f ON f.file_id = s.file_id
     WHERE s.__x__ IS NOT NULL

@@ -72,7 +72,8 @@ DIALECTS: tuple[str, ...] = ("duckdb", "spark", "postgres", "trino")
 #: Functions sqlglot does not model (so it prints them unchanged) that a target does have.
 _KNOWN: dict[str, frozenset[str]] = {
     "duckdb": frozenset(),
-    "spark": frozenset({"row"}),
+    # any_value(x, true): the ignore-nulls form the any_value rewrite writes (Spark 3.4 on)
+    "spark": frozenset({"row", "any_value"}),
     # log: the one-argument base-10 LOG the log10 rewrite writes (see _Rewriter)
     "postgres": frozenset({"row", "log"}),
     "trino": frozenset({"row", "is_finite", "is_infinite", "is_nan"}),
