@@ -41,15 +41,17 @@ lint: $(STAMP)
 typecheck: $(STAMP)
 	$(BIN)/mypy
 
+# two workers: the machines that run it have two cores
 test: $(STAMP) system lint typecheck
-	$(BIN)/pytest -q
+	$(BIN)/pytest -q -n 2
 
 bench: $(STAMP)
 	$(BIN)/python bench/append_bench.py
 	$(BIN)/python bench/fleet_bench.py
 
 fuzz: $(STAMP)
-	TRENDLEDGER_FUZZ=long $(BIN)/pytest -q tests/test_hostile_input.py tests/test_crash.py tests/test_races.py
+	TRENDLEDGER_FUZZ=long $(BIN)/pytest -q -n 2 tests/test_hostile_input.py tests/test_crash.py tests/test_races.py \
+	  tests/test_names.py tests/test_engines.py
 
 clean:
 	rm -rf $(VENV) demo/run .pytest_cache .mypy_cache .ruff_cache
